@@ -1,0 +1,164 @@
+"""One design evaluation: build, mesh, solve over the band, fields at the target, metrics.
+
+:func:`evaluate` is a pure function of ``(Design, Band, SolverSettings)``; it knows nothing of
+studies, stores or clusters.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from sweeps.design import Band, Design
+from sweeps.materials import C0
+from sweeps.metrics import MetricSet, compute_metrics
+from sweeps.mom.fields import directions, radiation_intensity
+from sweeps.mom.solve import PortSolution, Solver, SolverSettings
+from sweeps.shapes import build_structure
+
+__all__ = ["Evaluation", "evaluate", "peak_gain"]
+
+
+@dataclass
+class Evaluation:
+    """Everything one evaluation produced.
+
+    Attributes
+    ----------
+    design, band, settings
+        The inputs.
+    f_hz : ndarray, shape (F,)
+        Band frequencies in Hz.
+    z : ndarray, shape (F, P, P)
+        Port impedance matrix in ohm (P = 1 for the shapes of :mod:`sweeps.shapes`).
+    efficiency : ndarray, shape (F,)
+        Radiation efficiency of the antenna port.
+    gain_dbi, directivity_dbi : float
+        Peak gain and directivity at the target frequency.
+    peak_direction : ndarray, shape (3,)
+        Unit vector of the peak.
+    enclosing_radius_m : float
+        Radius of the smallest sphere enclosing the antenna.
+    n_unknowns : int
+    metrics : MetricSet
+    """
+
+    design: Design
+    band: Band
+    settings: SolverSettings
+    f_hz: NDArray[np.float64]
+    z: NDArray[np.complex128]
+    efficiency: NDArray[np.float64]
+    gain_dbi: float
+    directivity_dbi: float
+    peak_direction: NDArray[np.float64]
+    enclosing_radius_m: float
+    n_unknowns: int
+    metrics: MetricSet
+    solver: Solver | None = None
+
+    @property
+    def zin(self) -> NDArray[np.complex128]:
+        """Input impedance of port 1 over the band, shape (F,)."""
+        return self.z[:, 0, 0]
+
+
+def peak_gain(
+    solver: Solver, solution: PortSolution, index: int, port: int = 0, step_deg: float = 5.0
+) -> tuple[float, float, NDArray[np.float64]]:
+    """Peak gain and directivity (dBi) at frequency ``index`` over a ``step_deg`` grid.
+
+    Gain is ``4 pi U / P_in`` (IEEE Std 145-2013 definition, not realized gain); directivity
+    ``4 pi U / P_rad``. The grid maximum is refined by a local parabolic search.
+    """
+    from scipy.optimize import minimize
+
+    k = 2.0 * math.pi * solution.f_hz[index] / C0
+    cur = solution.currents[index][:, port]
+    nt = int(round(180.0 / step_deg)) + 1
+    npf = int(round(360.0 / step_deg))
+    theta = np.radians(np.linspace(0.0, 180.0, nt))
+    phi = np.radians(np.arange(npf) * step_deg)
+    tt, pp = np.meshgrid(theta, phi, indexing="ij")
+    u = radiation_intensity(solver.points, cur, k, directions(tt.ravel(), pp.ravel()))[:, 0]
+    i = int(np.argmax(u))
+    x0 = np.array([tt.ravel()[i], pp.ravel()[i]])
+
+    def neg(x: NDArray[np.float64]) -> float:
+        d = directions(np.array([x[0]]), np.array([x[1]]))
+        return -float(radiation_intensity(solver.points, cur, k, d)[0, 0])
+
+    res = minimize(neg, x0, method="Nelder-Mead",
+                   options={"xatol": 1e-4, "fatol": 1e-12 * max(u[i], 1e-300)})
+    umax = max(-res.fun, u[i])
+    best = res.x if -res.fun >= u[i] else x0
+    p_in = solution.p_in[index, port]
+    p_rad = solution.p_rad[index, port]
+    gain = 10.0 * math.log10(4.0 * math.pi * umax / p_in) if p_in > 0 else -math.inf
+    direc = 10.0 * math.log10(4.0 * math.pi * umax / p_rad) if p_rad > 0 else -math.inf
+    return gain, direc, directions(np.array([best[0]]), np.array([best[1]]))[0]
+
+
+def evaluate(
+    design: Design,
+    band: Band,
+    settings: SolverSettings | None = None,
+    *,
+    keep_solver: bool = False,
+) -> Evaluation:
+    """Evaluate one design over a band.
+
+    Parameters
+    ----------
+    design : Design
+    band : Band
+    settings : SolverSettings, optional
+    keep_solver : bool
+        Keep the :class:`~sweeps.mom.solve.Solver` on the result (for plane-wave or pattern
+        follow-ups; it holds the matrices, so leave it off in studies).
+
+    Returns
+    -------
+    Evaluation
+    """
+    settings = settings or SolverSettings()
+    structure = build_structure(design)
+    solver = Solver(structure, band.stop_hz, settings)
+    f = band.f_hz
+    on_grid = np.isclose(f, band.target_hz, rtol=1e-12, atol=0.0)
+    if on_grid.any():
+        f_all = f
+        it = int(np.argmax(on_grid))
+    else:
+        f_all = np.append(f, band.target_hz)
+        it = len(f)
+    sol = solver.solve(f_all)
+    gain, direc, peak = peak_gain(solver, sol, it)
+    eff_all = sol.efficiency[:, 0]
+    n = len(f)
+    z = sol.z[:n]
+    eff = eff_all[:n]
+    metrics = compute_metrics(
+        f, z[:, 0, 0], target_hz=band.target_hz, z0_ohm=design.z0_ohm,
+        efficiency=eff, gain_dbi=gain,
+    )
+    # report efficiency at the target from the solve itself, not an interpolation
+    metrics.set("efficiency", float(eff_all[it]))
+    return Evaluation(
+        design=design,
+        band=band,
+        settings=settings,
+        f_hz=f,
+        z=z,
+        efficiency=eff,
+        gain_dbi=gain,
+        directivity_dbi=direc,
+        peak_direction=peak,
+        enclosing_radius_m=solver.mesh.enclosing_radius(),
+        n_unknowns=solver.mesh.n_unknowns,
+        metrics=metrics,
+        solver=solver if keep_solver else None,
+    )
