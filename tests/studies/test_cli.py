@@ -278,3 +278,25 @@ def test_installed_command_in_a_subprocess(tmp_path):
                          capture_output=True, text=True, env=env, timeout=300, cwd=tmp_path)
     assert res.returncode == 2 and res.stdout == ""
     assert res.stderr.strip() == "filamant: error: missing.toml: no such file"
+
+
+SHAPES = {
+    "meander": 'shape = "meander"\nlength_mm = 100\nturns = 2\npitch_mm = 6\nheight_mm = 10\n',
+    "folded": 'shape = "folded"\nlength_mm = 150\nspacing_mm = 10\n',
+    "loop": 'shape = "loop"\ncircumference_mm = 300\nsides = 12\n',
+    "wires": 'shape = "wires"\nfeed_point_mm = [0, 0, 0]\n'
+             'wires = [{ points_mm = [[-75, 0, 0], [0, 0, 0], [75, 0, 0]] }]\n',
+}
+
+
+@pytest.mark.parametrize("shape", list(SHAPES))
+def test_every_shape_evaluates_from_its_config_keys(capsys, tmp_path, shape):
+    """The config keys of each shape reach its builder in sweeps.shapes (end to end)."""
+    path = tmp_path / f"{shape}.toml"
+    path.write_text(f"[antenna]\n{SHAPES[shape]}width_mm = 2\nthickness_mm = 0.4\n"
+                    "conductivity_s_per_m = 3e4\n[band]\nstart_mhz = 800\nstop_mhz = 1000\n"
+                    "points = 11\n")
+    code, out, err = run_cli(capsys, "evaluate", str(path), "--json")
+    assert code == 0, err
+    obj = json.loads(out)
+    assert obj["target_mhz"] == 900.0 and obj["zin_re_ohm"] > 0
