@@ -143,20 +143,21 @@ def _print_table(title: str, report: dict[str, Any], notes: dict[str, str]) -> N
     units = _units()
     names = [k for k in report if k not in ("reasons", "target_mhz", "cautions")]
     width = max(len(n) for n in names)
+    shown = {n: ("" if units.get(n, "") == "1" else units.get(n, "")) for n in names}
+    uw = max(4, *(len(u) for u in shown.values()))
     missing = dash()
     out = sys.stdout
     out.write(f"{title}\n")
     out.write(f"metrics at {format_number(report['target_mhz'])} MHz\n\n")
-    out.write(f"  {'metric':<{width}}  {'value':>11}  unit\n")
+    out.write(f"  {'metric':<{width}}  {'value':>11}  {'unit':<{uw}}  note\n")
     for name in names:
         value = report[name]
-        unit = units.get(name, "")
-        unit = "" if unit == "1" else unit
         if value is None:
-            out.write(f"  {name:<{width}}  {missing:>11}  ({report['reasons'][name]})\n")
+            text, note = missing, report["reasons"][name]
         else:
-            note = f"  ({notes[name]})" if name in notes else ""
-            out.write(f"  {name:<{width}}  {format_number(value):>11}  {unit}{note}\n")
+            text, note = format_number(value), notes.get(name, "")
+        line = f"  {name:<{width}}  {text:>11}  {shown[name]:<{uw}}  {note}"
+        out.write(line.rstrip() + "\n")
     if report["cautions"]:
         out.write("\nCaution:\n")
         for line in report["cautions"]:
