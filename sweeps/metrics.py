@@ -189,13 +189,13 @@ def resonances_hz(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]) -> NDA
     from scipy.optimize import brentq
 
     spline = CubicSpline(f_hz, x)
-    roots = np.empty(len(idx))
+    roots = linear.copy()
     for k, (a, b, xa, xb) in enumerate(zip(f0, f1, x0, x1, strict=True)):
         if xa == 0.0:
             roots[k] = a
         elif xb == 0.0:
             roots[k] = b
-        else:
+        elif np.signbit(spline(a)) != np.signbit(spline(b)):  # round-off can spoil the bracket
             roots[k] = brentq(lambda t: float(spline(t)), a, b, xtol=1e-9 * b, rtol=1e-14)
     return roots
 
