@@ -42,6 +42,23 @@ reciprocity (``e^T I_sc = p . A_1``, the transmit radiation vector) turns the sc
 difference into the formula above exactly. ``tests/sweeps/test_backscatter_mom.py`` checks it
 against full plane-wave scattering.
 
+Switch loads. Each state is a series R-L-C (:class:`sweeps.design.SwitchLoad`), evaluated
+as a complex impedance at every frequency of the band. The defaults of
+:class:`sweeps.design.SwitchStates` are common practice, not measurements:
+
+- closed: ``20 ohm + 1 nH``. A pressed contact between two printed conductive-filament
+  surfaces has tens of ohms of contact resistance (the filament's resistivity and the small
+  real contact area); 1 nH is the order of a millimetre-scale current path (about 6 ohm of
+  reactance at 915 MHz).
+- open: ``1 ohm + 0.1 pF``. An open gap of about a millimetre between trace ends is a small
+  capacitance: the parallel-plate value of two 3 mm x 0.4 mm end faces 1 mm apart is only
+  0.01 pF, fringing fields through the air and the print's plastic raise it to some 0.03 to
+  0.1 pF; 0.1 pF (about -j1.7 kohm at 915 MHz) is the pessimistic end, which makes the open
+  state less open. The 1 ohm stands for the trace stubs' loss.
+
+Measure your own contacts (a one-port measurement of each state across the gap) and put them
+in ``[switch]``.
+
 Read range: see :func:`read_range`. A reader is a radio transmitter: its power, band and duty
 are set by local regulations, and RF exposure limits apply (:data:`READ_RANGE_CAUTION`).
 """
