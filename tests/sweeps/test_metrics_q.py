@@ -202,3 +202,27 @@ def test_lossy_dipole_respects_efficiency_scaled_bound(sigma: float) -> None:
     m = ev.metrics.values
     assert m["chu_ratio"] is not None
     assert m["chu_ratio"] / m["efficiency"] >= 1.0
+
+
+_SEC = CrossSection.trace(1e-3, 0.4e-3)
+_SHAPES = [
+    ("meander-2-turns", Design("meander", {"length_m": 0.10, "turns": 2, "pitch_m": 4e-3,
+                                           "height_m": 10e-3}, _SEC), Band(500e6, 1600e6, 56, 1e9)),
+    ("meander-4-turns", Design("meander", {"length_m": 0.10, "turns": 4, "pitch_m": 4e-3,
+                                           "height_m": 10e-3}, _SEC), Band(400e6, 1500e6, 56, 9e8)),
+    ("folded", Design("folded", {"length_m": 0.15, "spacing_m": 10e-3}, _SEC),
+     Band(700e6, 1200e6, 51, 915e6)),
+    ("folded-wide", Design("folded", {"length_m": 0.12, "spacing_m": 20e-3},
+                           CrossSection.trace(3e-3, 0.4e-3)), Band(800e6, 1500e6, 51, 1.1e9)),
+    ("loop", Design("loop", {"circumference_m": 0.33}, _SEC), Band(600e6, 1300e6, 71, 915e6)),
+]
+
+
+@pytest.mark.parametrize(("design", "band"), [c[1:] for c in _SHAPES],
+                         ids=[c[0] for c in _SHAPES])
+def test_no_shape_beats_chu_bound(design: Design, band: Band) -> None:
+    """The printed shapes of sweeps.shapes, lossless: chu_ratio >= 1 at resonance."""
+    ev = evaluate(design, band)
+    ratio = ev.metrics.values["chu_ratio"]
+    assert ratio is not None, ev.metrics.reasons.get("chu_ratio")
+    assert ratio >= 1.0
