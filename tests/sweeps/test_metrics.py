@@ -21,15 +21,7 @@ from sweeps.metrics import (
     compute_metrics,
     resonances_hz,
 )
-
-F0 = 915e6
-W0 = 2 * math.pi * F0
-
-
-def series_rlc(f: np.ndarray, r: float, q: float) -> np.ndarray:
-    w = 2 * math.pi * f
-    ell = q * r / W0
-    return r + 1j * (w * ell - 1 / (w / (W0**2 * ell)))
+from tests.sweeps.circuit_models import F0, W0, series_rlc
 
 
 def test_names_follow_design_md() -> None:

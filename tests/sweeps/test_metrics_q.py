@@ -25,25 +25,7 @@ from sweeps.metrics import (
     resonances_hz,
     yaghjian_best_q,
 )
-
-F0 = 915e6
-W0 = 2 * math.pi * F0
-
-
-def series_rlc(f: np.ndarray, r: float, q: float) -> np.ndarray:
-    """Series RLC resonant at F0 with Q = w0 L / R."""
-    w = 2 * math.pi * f
-    ell = q * r / W0
-    c = 1 / (W0**2 * ell)
-    return r + 1j * (w * ell - 1 / (w * c))
-
-
-def parallel_rlc(f: np.ndarray, r: float, q: float) -> np.ndarray:
-    """Parallel RLC resonant at F0 with Q = w0 C R."""
-    w = 2 * math.pi * f
-    c = q / (W0 * r)
-    ell = 1 / (W0**2 * c)
-    return 1 / (1 / r + 1j * w * c + 1 / (1j * w * ell))
+from tests.sweeps.circuit_models import F0, parallel_rlc, series_rlc
 
 
 def test_chu_bound_reference_values() -> None:

@@ -22,6 +22,7 @@ from sweeps.evaluate import evaluate
 from sweeps.geometry import CrossSection
 from sweeps.metrics import METRIC_NAMES, compute_metrics
 from sweeps.touchstone import evaluate_touchstone, read_touchstone, write_touchstone
+from tests.sweeps.circuit_models import series_rlc
 
 UNITS = {"Hz": 1.0, "kHz": 1e3, "MHz": 1e6, "GHz": 1e9}
 F = np.linspace(800e6, 1000e6, 21)
@@ -29,10 +30,7 @@ F = np.linspace(800e6, 1000e6, 21)
 
 def rlc(f: np.ndarray) -> np.ndarray:
     """A series RLC antenna model, 70 ohm, resonant at 915 MHz, Q = 6 (invented test data)."""
-    w, w0 = 2 * np.pi * f, 2 * np.pi * 915e6
-    ell = 6 * 70 / w0
-    return 70 + 1j * (w * ell - 1 / (w / (w0**2 * ell)))
-
+    return series_rlc(f, 70.0, 6.0)
 
 def num(x: float) -> str:
     """All digits of a float (repr of a Python float round-trips exactly)."""
