@@ -523,8 +523,11 @@ def _q_metrics(ms: MetricSet, f_hz: NDArray[np.float64], zin: NDArray[np.complex
     if radius_m is None:
         ms.set("chu_ratio", None, no_radius)
         return
+    if not (radius_m > 0 and math.isfinite(radius_m)):
+        ms.set("chu_ratio", None, f"the enclosing radius must be > 0 m (got {radius_m!r})")
+        return
     ka = 2.0 * np.pi * f0 / C0 * radius_m
-    ms.set("chu_ratio", q / chu_bound(ka), "the enclosing radius is not positive")
+    ms.set("chu_ratio", q / chu_bound(ka))
     ms.notes["chu_ratio"] = (f"ka = {ka:.4g} at the resonance, Chu-McLean Q_min = "
                              f"{chu_bound(ka):.4g}")
 

@@ -62,6 +62,11 @@ def test_series_rlc_closed_forms() -> None:
     assert v["q_factor"] == pytest.approx(q, rel=1e-6)
     # no geometry: chu_ratio explains itself
     assert v["chu_ratio"] is None and "size" in ms.reasons["chu_ratio"]
+    # with a 40 mm enclosing sphere: Q over McLean's bound at k0 a
+    ka = W0 / C0 * 0.04
+    ms2 = compute_metrics(f, z, target_hz=F0, z0_ohm=r, enclosing_radius_m=0.04)
+    assert ms2.values["chu_ratio"] == pytest.approx(q / (1 / ka**3 + 1 / ka), rel=1e-6)
+    assert compute_metrics(f, z, target_hz=F0, enclosing_radius_m=0.0).values["chu_ratio"] is None
 
 
 def test_s11_at_target_between_samples() -> None:
