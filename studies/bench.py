@@ -30,7 +30,7 @@ from sweeps.geometry import CrossSection
 from sweeps.mom.solve import Solver
 from sweeps.shapes import build_structure
 
-__all__ = ["reference_design", "design_over_lapack", "scaling", "median_time"]
+__all__ = ["reference_design", "design_over_lapack", "scaling", "median_time", "run_all"]
 
 
 def reference_design(unknowns: int = 41) -> tuple[Design, Band]:
@@ -167,3 +167,60 @@ def format_scaling(result: dict[str, object]) -> str:
 
 def _fmt(x: float) -> str:
     return f"{x:.3g}" if math.isfinite(x) else str(x)
+
+
+MEASUREMENTS = ("design_over_lapack", "scaling", "two_worker_efficiency", "surrogate_speedup",
+                "large_study")
+
+
+def run_all(quick: bool = False, only: tuple[str, ...] = ()) -> dict[str, object]:
+    """Run the measurements (all, or those named in ``only``) and return a JSON-ready dict.
+
+    The per-design figures run with one BLAS thread, as a study worker does (one
+    single-threaded worker process per core), for the evaluation and its LAPACK reference alike.
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1):
+        return _run_all(quick, only)
+
+
+def _run_all(quick: bool, only: tuple[str, ...]) -> dict[str, object]:
+    from sweeps.errors import ConfigError
+
+    unknown = [o for o in only if o not in MEASUREMENTS]
+    if unknown:
+        raise ConfigError(f"bench --only: unknown measurement {unknown[0]!r}; expected one of "
+                          f"{', '.join(MEASUREMENTS)}")
+    want = set(only or MEASUREMENTS)
+    out: dict[str, object] = {}
+    if "design_over_lapack" in want:
+        r = design_over_lapack(repeats=5 if quick else 15)
+        out["design_over_lapack"] = {
+            "ratio": round(r.ratio, 3), "evaluation_ms": round(r.design_s * 1e3, 3),
+            "lapack_ms": round(r.lapack_s * 1e3, 3), "unknowns": r.unknowns,
+            "frequencies": r.frequencies, "target": 3.0,
+        }
+    if "scaling" in want:
+        res = scaling((41, 81, 161, 321) if quick else (41, 81, 161, 321, 641, 801),
+                      repeats=2 if quick else 3)
+        out["scaling"] = {
+            "unknowns": [p.unknowns for p in res["points"]],
+            "fill_ms": [round(p.fill_s * 1e3, 3) for p in res["points"]],
+            "solve_ms": [round(p.solve_s * 1e3, 3) for p in res["points"]],
+            "setup_ms": [round(p.setup_s * 1e3, 3) for p in res["points"]],
+            "peak_mb": [round(p.peak_bytes / 1e6, 3) for p in res["points"]],
+            "peak_over_16n2": [round(x, 2) for x in res["bytes_per_16n2"]],
+            "fill_exponent": round(res["fill_exponent"], 3),
+            "solve_exponent": round(res["solve_exponent"], 3),
+            "memory_exponent": round(res["memory_exponent"], 3),
+            "table": format_scaling(res),
+        }
+    for name in ("two_worker_efficiency", "surrogate_speedup", "large_study"):
+        if name in want and name in _EXTRA:
+            out[name] = _EXTRA[name](quick)
+    return out
+
+
+#: Measurements contributed by the study and surrogate layers: name -> fn(quick) -> dict.
+_EXTRA: dict[str, Callable[[bool], dict[str, object]]] = {}

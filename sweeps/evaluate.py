@@ -67,14 +67,14 @@ class Evaluation:
 
 
 def peak_gain(
-    solver: Solver, solution: PortSolution, index: int, port: int = 0, step_deg: float = 10.0
+    solver: Solver, solution: PortSolution, index: int, port: int = 0, step_deg: float = 15.0
 ) -> tuple[float, float, NDArray[np.float64]]:
     """Peak gain and directivity (dBi) at frequency ``index``.
 
     Gain is ``4 pi U / P_in`` (IEEE Std 145-2013 definition, not realized gain); directivity
     ``4 pi U / P_rad``. The maximum of a ``step_deg`` grid over the sphere is refined by fitting
     a parabola through the grid neighbours in theta and phi (the pattern of an antenna this size
-    is smooth on that scale: for a dipole-like ``sin^2`` lobe the refined peak is within 1e-4 dB).
+    is smooth on that scale: for a dipole-like ``sin^2`` lobe the refined peak is within 0.01 dB).
     """
     k = 2.0 * math.pi * solution.f_hz[index] / C0
     cur = solution.currents[index][:, port]

@@ -240,8 +240,8 @@ class MatrixFill:
         out = np.zeros((len(f), currents.shape[-1]))
         for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f),
                                              strict=True):
-            quad = np.einsum("fnk,n,fnk->fk", currents[:, rows, :].conj(), vals,
-                             currents[:, cols, :])
+            quad = np.sum(currents[:, rows, :].conj() * (vals[None, :, None]
+                                                         * currents[:, cols, :]), axis=1)
             out += 0.5 * zs.real[:, None] * quad.real
         return out
 

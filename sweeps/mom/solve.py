@@ -203,9 +203,9 @@ class Solver:
             raise SolverError(f"impedance matrix is singular: {exc}") from exc
         if not np.all(np.isfinite(cur)):
             raise SolverError("non-finite currents: the impedance matrix is ill-conditioned")
-        y = np.einsum("np,fnq->fpq", e, cur)
-        z = np.linalg.inv(y)
-        p_in = 0.5 * np.real(np.einsum("fpp->fp", y))  # 1 V peak: P = Re(V I*)/2
+        y = e.T @ cur  # (F, P, P)
+        z = 1.0 / y if y.shape[-1] == 1 else np.linalg.inv(y)
+        p_in = 0.5 * np.real(np.diagonal(y, axis1=1, axis2=2))  # 1 V peak: P = Re(V I*)/2
         p_loss = self.fill.loss_power(cur, f) + self.fill.load_power(cur, f)
         return PortSolution(f_hz=f, z=z, y=y, currents=cur, p_in=p_in, p_rad=p_in - p_loss,
                             p_loss=p_loss)
