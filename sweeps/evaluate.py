@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from sweeps.design import Band, Design
+from sweeps.design import Band, Design, Reader
 from sweeps.materials import C0
 from sweeps.metrics import MetricSet, compute_metrics
 from sweeps.mom.fields import directions, radiation_intensity
@@ -115,6 +115,7 @@ def evaluate(
     settings: SolverSettings | None = None,
     *,
     keep_solver: bool = False,
+    reader: Reader | None = None,
 ) -> Evaluation:
     """Evaluate one design over a band.
 
@@ -126,6 +127,8 @@ def evaluate(
     keep_solver : bool
         Keep the :class:`~sweeps.mom.solve.Solver` on the result (for plane-wave or pattern
         follow-ups; it holds the matrices, so leave it off in studies).
+    reader : Reader, optional
+        The reader of the backscatter link; without it ``read_range_m`` is ``None``.
 
     Returns
     -------
@@ -150,7 +153,8 @@ def evaluate(
     eff = eff_all[:n]
     metrics = compute_metrics(
         f, z[:, 0, 0], target_hz=band.target_hz, z0_ohm=design.z0_ohm,
-        efficiency=eff, gain_dbi=gain,
+        efficiency=eff, gain_dbi=gain, enclosing_radius_m=solver.mesh.enclosing_radius(),
+        switch=design.switch, reader=reader,
     )
     # report efficiency at the target from the solve itself, not an interpolation
     metrics.set("efficiency", float(eff_all[it]))
