@@ -10,6 +10,7 @@ from __future__ import annotations
 from typing import Literal, get_args
 
 from sweeps.design import ShapeName
+from sweeps.metrics import METRIC_NAMES as _SWEEPS_METRIC_NAMES
 
 __all__ = [
     "ShapeName",
@@ -36,26 +37,8 @@ ParameterKind = Literal["range", "choice"]
 
 SHAPE_NAMES: tuple[str, ...] = get_args(ShapeName)
 
-#: The metric names of DESIGN.md, in its order (table columns follow this order).
-METRIC_NAMES: tuple[str, ...] = (
-    "resonance_mhz",
-    "match_mhz",
-    "s11_db",
-    "bandwidth_mhz",
-    "fractional_bandwidth",
-    "q_factor",
-    "chu_ratio",
-    "efficiency",
-    "gain_dbi",
-    "zin_re_ohm",
-    "zin_im_ohm",
-    "gamma_closed",
-    "gamma_open",
-    "modulation_depth",
-    "modulation_factor",
-    "delta_rcs_dbsm",
-    "read_range_m",
-)
+#: The metric names of DESIGN.md, in its order: the one list lives in :mod:`sweeps.metrics`.
+METRIC_NAMES: tuple[str, ...] = _SWEEPS_METRIC_NAMES
 
 #: Shape-specific ``[antenna]`` keys of each shape: (required, optional). A shape-specific key
 #: that is not listed for the chosen shape is an error.

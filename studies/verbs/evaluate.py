@@ -20,7 +20,6 @@ metric does not exist), ``"reasons"`` (metric → why it is null), ``"target_mhz
 from __future__ import annotations
 
 import argparse
-import inspect
 import logging
 import sys
 from pathlib import Path
@@ -110,10 +109,7 @@ def _evaluate(config: DesignConfig):  # noqa: ANN202  (sweeps.evaluate.Evaluatio
     from sweeps.evaluate import evaluate
 
     design, band, reader = design_from(config)
-    kwargs: dict[str, Any] = {}
-    if "reader" in inspect.signature(evaluate).parameters:
-        kwargs["reader"] = reader  # the metrics that need the reader (read_range_m)
-    return evaluate(design, band, solver_settings(config), **kwargs)
+    return evaluate(design, band, solver_settings(config), reader=reader)
 
 
 def metrics_report(values: dict[str, float | None], reasons: dict[str, str],
@@ -139,8 +135,21 @@ def _units() -> dict[str, str]:
     return dict(METRIC_UNITS)
 
 
+def _table_notes(notes: dict[str, str]) -> dict[str, str]:
+    """Notes for the table, without the read-range caution (printed once below the table)."""
+    from sweeps.backscatter import READ_RANGE_CAUTION
+
+    out = {}
+    for name, note in notes.items():
+        note = note.replace(READ_RANGE_CAUTION, "").strip().rstrip(";").strip()
+        if note:
+            out[name] = note
+    return out
+
+
 def _print_table(title: str, report: dict[str, Any], notes: dict[str, str]) -> None:
     units = _units()
+    notes = _table_notes(notes)
     names = [k for k in report if k not in ("reasons", "target_mhz", "cautions")]
     width = max(len(n) for n in names)
     shown = {n: ("" if units.get(n, "") == "1" else units.get(n, "")) for n in names}
@@ -177,11 +186,8 @@ def _run_design(args: argparse.Namespace) -> int:
     log.info("solved %d unknowns", ev.n_unknowns)
     ms = ev.metrics
     if args.touchstone is not None:
-        try:
-            from sweeps.touchstone import write_touchstone
-        except ImportError:
-            raise ConfigError("--touchstone: Touchstone export is not supported by this "
-                              "version") from None
+        from sweeps.touchstone import write_touchstone
+
         written = write_touchstone(args.touchstone, ev.f_hz, ev.z, config.feed.z0_ohm,
                                    comments=design_comments(config, args.source))
         sys.stderr.write(f"filamant: wrote {written}\n")
@@ -196,7 +202,7 @@ def _run_design(args: argparse.Namespace) -> int:
         title = (f"{args.source}: {a.shape}, {size}, {ev.n_unknowns} unknowns, "
                  f"{config.band.points} frequencies {config.band.start_mhz:g}-"
                  f"{config.band.stop_mhz:g} MHz")
-        _print_table(title, report, dict(getattr(ms, "notes", {}) or {}))
+        _print_table(title, report, dict(ms.notes))
     return 0
 
 
@@ -204,11 +210,8 @@ def _run_touchstone(args: argparse.Namespace) -> int:
     if args.touchstone is not None:
         raise ConfigError(f"--touchstone: {args.source} is already a Touchstone result")
     opts = touchstone_options(args.set, target_mhz=args.target_mhz)
-    try:
-        from sweeps.touchstone import evaluate_touchstone
-    except ImportError:
-        raise ConfigError(f"{args.source}: Touchstone results are not supported by this "
-                          "version") from None
+    from sweeps.touchstone import evaluate_touchstone
+
     ms = evaluate_touchstone(
         args.source, args.port or 1,
         target_hz=None if opts.target_mhz is None else opts.target_mhz * 1e6,
@@ -224,7 +227,7 @@ def _run_touchstone(args: argparse.Namespace) -> int:
         print_json(report)
     else:
         title = f"{args.source}: Touchstone result, port {args.port or 1}"
-        _print_table(title, report, dict(getattr(ms, "notes", {}) or {}))
+        _print_table(title, report, dict(ms.notes))
     return 0
 
 

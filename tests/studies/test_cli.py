@@ -168,6 +168,7 @@ def test_evaluate_table_prints_every_metric(capsys, tag_json):
         else:
             assert format_number(value) in rows[name]
     assert ("Caution:" in out) == (tag_json["read_range_m"] is not None)
+    assert out.count("47 CFR 15.247") <= 1  # the caution is printed once, below the table
 
 
 def test_table_ends_with_the_caution_when_a_range_is_shown(capsys):

@@ -16,7 +16,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from studies.config import SECTIONS, load_design, load_study
+from studies.config import SECTIONS, load_design, load_study, touchstone_options
 from studies.constants import METRIC_NAMES, VARIABLE_KEYS
 from sweeps.errors import ConfigError
 
@@ -194,3 +194,20 @@ def test_mutated_example_raises_only_config_errors(fuzz_dir, edits):
 ), max_size=3))
 def test_random_overrides_raise_only_config_errors(items):
     check_only_config_errors(EXAMPLE, items)
+
+
+@FUZZ
+@given(items=st.lists(st.tuples(
+    st.sampled_from(["switch.closed.r_ohm", "switch.open.c_pf", "switch.open", "reader.x",
+                     "reader.tx_power_dbm", "feed.z0_ohm", "band.target_mhz", "antenna.shape",
+                     "band.points"]),
+    values).map(lambda kv: f"{kv[0]}={toml_value(kv[1])}"), max_size=3),
+    target=st.none() | st.floats())
+def test_touchstone_options_raise_only_config_errors(items, target):
+    try:
+        opts = touchstone_options(items, target_mhz=target)
+    except ConfigError as exc:
+        assert "\n" not in str(exc)
+    else:
+        assert opts.target_mhz is None or (math.isfinite(opts.target_mhz)
+                                           and opts.target_mhz > 0)
