@@ -67,7 +67,7 @@ class KernelRules:
     def __init__(
         self,
         static_far: int = 4,
-        dynamic: int = 3,
+        dynamic: int = 2,
         near_outer: int = 10,
         near_phi: int = 10,
         near_lengths: float = 2.0,
