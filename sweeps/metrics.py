@@ -585,5 +585,6 @@ def _switch_metrics(ms: MetricSet, f_hz: NDArray[np.float64], zin: NDArray[np.co
     floor_dbm = 10.0 * math.log10(rr.floor_w / 1e-3)
     what = "residual carrier after cancellation" if rr.limited_by == "carrier" else \
         "receiver sensitivity"
-    ms.notes["read_range_m"] = (f"limited by the {what} ({floor_dbm:.1f} dBm); "
-                                + backscatter.READ_RANGE_CAUTION)
+    # the cautions themselves are sweeps.backscatter.READ_RANGE_CAUTION (shown by the callers)
+    ms.notes["read_range_m"] = (f"limited by the {what} ({floor_dbm:.1f} dBm); an estimate: "
+                                "see the regulatory and exposure cautions")

@@ -38,7 +38,7 @@ import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Literal
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -48,9 +48,13 @@ from sweeps.errors import FilamantError, TouchstoneError
 from sweeps.metrics import MetricSet, compute_metrics
 from sweeps.touchstone_syntax import UNIT_NAMES, UNITS, canonical_text, parse_touchstone
 
+if TYPE_CHECKING:  # scikit-rf is imported where it is used (it is slow to import)
+    import skrf
+
 __all__ = ["TouchstoneData", "evaluate_touchstone", "read_touchstone", "write_touchstone"]
 
 log = logging.getLogger(__name__)
+
 
 @dataclass(frozen=True)
 class TouchstoneData:
@@ -111,8 +115,8 @@ class TouchstoneData:
             )
         return self.z0_ohm[port - 1] * (1.0 + spp) / (1.0 - spp)
 
-    def network(self):  # -> skrf.Network (not annotated: keeps scikit-rf an import-time option)
-        """The data as a :class:`skrf.Network`."""
+    def network(self) -> skrf.Network:
+        """The data as a :class:`skrf.Network` (port impedances ``z0_ohm``)."""
         import skrf
 
         freq = skrf.Frequency.from_f(self.f_hz, unit="Hz")

@@ -109,7 +109,7 @@ def test_switch_metrics_against_backscatter_formulas() -> None:
     sigma = lam**2 * 10 ** 0.4 * abs(gc - go) ** 2 / (4 * math.pi)
     assert v["delta_rcs_dbsm"] == pytest.approx(10 * math.log10(sigma), abs=1e-9)
     assert v["read_range_m"] == pytest.approx(bs.read_range(F0, sigma, reader).range_m, rel=1e-9)
-    assert "carrier" in ms.notes["read_range_m"] and "regulations" in ms.notes["read_range_m"]
+    assert "carrier" in ms.notes["read_range_m"] and "cautions" in ms.notes["read_range_m"]
     # band arrays use the complex loads over frequency
     for name in ARRAY_NAMES:
         if name != "efficiency":
