@@ -151,9 +151,10 @@ def evaluate(
     n = len(f)
     z = sol.z[:n]
     eff = eff_all[:n]
+    radius = solver.mesh.enclosing_radius()
     metrics = compute_metrics(
         f, z[:, 0, 0], target_hz=band.target_hz, z0_ohm=design.z0_ohm,
-        efficiency=eff, gain_dbi=gain, enclosing_radius_m=solver.mesh.enclosing_radius(),
+        efficiency=eff, gain_dbi=gain, enclosing_radius_m=radius,
         switch=design.switch, reader=reader,
     )
     # report efficiency at the target from the solve itself, not an interpolation
@@ -168,7 +169,7 @@ def evaluate(
         gain_dbi=gain,
         directivity_dbi=direc,
         peak_direction=peak,
-        enclosing_radius_m=solver.mesh.enclosing_radius(),
+        enclosing_radius_m=radius,
         n_unknowns=solver.mesh.n_unknowns,
         metrics=metrics,
         solver=solver if keep_solver else None,
