@@ -23,6 +23,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Literal, get_args
 
 import numpy as np
@@ -318,22 +319,33 @@ class Mesh:
     def n_unknowns(self) -> int:
         return int(self.half_seg.shape[0])
 
-    @property
+    # Derived geometry is computed once per mesh (the solver reads it many times); the arrays
+    # are shared, so treat them as read-only.
+    @cached_property
     def seg_start(self) -> NDArray[np.float64]:
+        """Start point of each segment in m, (S, 3)."""
         return self.nodes[self.seg_nodes[:, 0]]
 
-    @property
+    @cached_property
     def seg_end(self) -> NDArray[np.float64]:
+        """End point of each segment in m, (S, 3)."""
         return self.nodes[self.seg_nodes[:, 1]]
 
-    @property
+    @cached_property
     def seg_length(self) -> NDArray[np.float64]:
+        """Length of each segment in m, (S,)."""
         return np.linalg.norm(self.seg_end - self.seg_start, axis=1)
 
-    @property
+    @cached_property
     def seg_dir(self) -> NDArray[np.float64]:
+        """Unit direction of each segment, (S, 3)."""
         d = self.seg_end - self.seg_start
         return d / np.linalg.norm(d, axis=1)[:, None]
+
+    @cached_property
+    def seg_distance(self) -> NDArray[np.float64]:
+        """Shortest distance between every pair of segments in m, (S, S)."""
+        return segment_distances(self.seg_start, self.seg_end, self.seg_start, self.seg_end)
 
     def enclosing_radius(self) -> float:
         """Radius in m of the smallest sphere enclosing the conductors.
@@ -343,29 +355,45 @@ class Mesh:
         "Smallest enclosing disks (balls and ellipsoids)", LNCS 555, 1991); the largest conductor
         half-extent is added for the trace's own width.
         """
-        pts = np.unique(np.vstack([w.points for w in self.structure.wires]), axis=0)
-        _, r = min_enclosing_ball(pts)
-        extent = max(w.section.half_extent_m for w in self.structure.wires)
-        return r + extent
+        if "_enclosing" not in self.__dict__:
+            pts = np.unique(np.vstack([w.points for w in self.structure.wires]), axis=0)
+            if len(pts) <= 2:  # a straight wire: the ball on its two ends
+                r = 0.5 * float(np.linalg.norm(pts[-1] - pts[0]))
+            else:
+                _, r = min_enclosing_ball(pts)
+            extent = max(w.section.half_extent_m for w in self.structure.wires)
+            self.__dict__["_enclosing"] = r + extent
+        return self.__dict__["_enclosing"]
 
 
 def _merge_points(points: NDArray[np.float64], tol: float
                   ) -> tuple[NDArray[np.float64], NDArray[np.int64]]:
     """Merge points closer than ``tol``: unique nodes and the node index of every point."""
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
     from scipy.spatial import cKDTree
 
     n = len(points)
     pairs = cKDTree(points).query_pairs(tol, output_type="ndarray")
-    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
-    _, labels = connected_components(graph, directed=False)
+    # connected components of the close pairs (union-find; the pairs are few: one per node
+    # shared between sub-pieces or wires), each labelled by its smallest point index
+    parent = np.arange(n)
+    for i, j in pairs.tolist():
+        while parent[i] != i:
+            i = parent[i]
+        while parent[j] != j:
+            j = parent[j]
+        if i != j:
+            parent[max(i, j)] = min(i, j)
+    labels = parent
+    while True:  # path compression to the roots
+        nxt = labels[labels]
+        if np.array_equal(nxt, labels):
+            break
+        labels = nxt
     # number nodes in order of first appearance, keep the first point of each group
-    _, first = np.unique(labels, return_index=True)
-    order = np.argsort(first)
-    rank = np.empty_like(order)
-    rank[order] = np.arange(len(order))
-    return points[first[order]], rank[labels].astype(np.int64)
+    first = np.flatnonzero(labels == np.arange(n))  # roots are the first point of their group
+    rank = np.full(n, -1, dtype=np.int64)
+    rank[first] = np.arange(len(first))
+    return points[first], rank[labels]
 
 
 def _ball_on(boundary: list[NDArray[np.float64]]) -> tuple[NDArray[np.float64], float]:
@@ -448,14 +476,15 @@ def segment_distances(
     Vectorised form of the classic closest-points-of-two-segments algorithm (clamped parameters,
     re-projection), shape ``(len(a0), len(b0))``.
     """
-    d1 = (a1 - a0)[:, None, :]
-    d2 = (b1 - b0)[None, :, :]
-    r = a0[:, None, :] - b0[None, :, :]
-    a = np.sum(d1 * d1, axis=-1)
-    e = np.sum(d2 * d2, axis=-1)
-    f = np.sum(d2 * r, axis=-1)
-    c = np.sum(d1 * r, axis=-1)
-    b = np.sum(d1 * d2, axis=-1)
+    # one (n, m) array per Cartesian component: no reductions over a short last axis
+    d1 = [(a1[:, i] - a0[:, i])[:, None] for i in range(3)]
+    d2 = [(b1[:, i] - b0[:, i])[None, :] for i in range(3)]
+    r = [a0[:, i][:, None] - b0[:, i][None, :] for i in range(3)]
+    a = d1[0] * d1[0] + d1[1] * d1[1] + d1[2] * d1[2]
+    e = d2[0] * d2[0] + d2[1] * d2[1] + d2[2] * d2[2]
+    f = d2[0] * r[0] + d2[1] * r[1] + d2[2] * r[2]
+    c = d1[0] * r[0] + d1[1] * r[1] + d1[2] * r[2]
+    b = d1[0] * d2[0] + d1[1] * d2[1] + d1[2] * d2[2]
     denom = a * e - b * b
     with np.errstate(divide="ignore", invalid="ignore"):
         s = np.where(denom > 1e-14 * a * e, np.clip((b * f - c * e) / denom, 0.0, 1.0), 0.0)
@@ -464,9 +493,11 @@ def segment_distances(
     with np.errstate(divide="ignore", invalid="ignore"):
         s = np.where(t < 0.0, np.clip(-c / a, 0.0, 1.0), np.where(t > 1.0,
                      np.clip((b - c) / a, 0.0, 1.0), s))
-    p = a0[:, None, :] + s[..., None] * d1
-    q = b0[None, :, :] + t_c[..., None] * d2
-    return np.linalg.norm(p - q, axis=-1)
+    sq = 0.0
+    for i in range(3):
+        gap = (a0[:, i][:, None] + s * d1[i]) - (b0[:, i][None, :] + t_c * d2[i])
+        sq = sq + gap * gap
+    return np.sqrt(sq)
 
 
 @dataclass
@@ -622,21 +653,18 @@ class Structure:
         all_pts = np.vstack(sub_pts)
         node_arr, index = _merge_points(all_pts, tol)
 
-        seg_nodes_l: list[tuple[int, int]] = []
-        seg_wire_l: list[int] = []
-        seg_piece_l: list[int] = []
-        offset = 0
-        for sp, wi, pi in zip(sub_pts, sub_wire, sub_piece, strict=True):
-            ids = index[offset: offset + len(sp)]
-            offset += len(sp)
-            for a, b in zip(ids[:-1], ids[1:], strict=True):
-                seg_nodes_l.append((int(a), int(b)))
-                seg_wire_l.append(wi)
-                seg_piece_l.append(pi)
-        seg_nodes = np.asarray(seg_nodes_l, dtype=np.int64)
-        seg_wire = np.asarray(seg_wire_l, dtype=np.int64)
-        seg_piece = np.asarray(seg_piece_l, dtype=np.int64)
-        seg_radius = np.asarray([self.wires[w].section.equivalent_radius_m for w in seg_wire])
+        # consecutive points of each sub-piece form its segments
+        counts = np.array([len(sp) for sp in sub_pts])
+        last = np.cumsum(counts) - 1  # index of the last point of each sub-piece
+        is_start = np.ones(len(all_pts), dtype=bool)
+        is_start[last] = False
+        first_pts = np.flatnonzero(is_start)
+        seg_nodes = np.stack([index[first_pts], index[first_pts + 1]], axis=1)
+        n_seg = counts - 1
+        seg_wire = np.repeat(np.asarray(sub_wire, dtype=np.int64), n_seg)
+        seg_piece = np.repeat(np.asarray(sub_piece, dtype=np.int64), n_seg)
+        wire_radius = np.array([w.section.equivalent_radius_m for w in self.wires])
+        seg_radius = wire_radius[seg_wire]
         starts = node_arr[seg_nodes[:, 0]]
         ends = node_arr[seg_nodes[:, 1]]
         seg_len = np.linalg.norm(ends - starts, axis=1)
@@ -655,58 +683,17 @@ class Structure:
             )
 
         # --- duplicate segments and overlap / touching between non-neighbouring segments
-        key = {tuple(sorted(sn)) for sn in seg_nodes_l}
-        if len(key) != len(seg_nodes_l):
+        key = np.sort(seg_nodes, axis=1)
+        if len(np.unique(key[:, 0] * len(node_arr) + key[:, 1])) != len(key):
             raise GeometryError("two wires overlap: the same segment appears twice")
-        _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
+        seg_dist = _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
 
         # --- basis functions
-        incident: dict[int, list[tuple[int, int]]] = {}
-        for s, (a, b) in enumerate(seg_nodes):
-            incident.setdefault(int(a), []).append((s, 0))  # node is start of s
-            incident.setdefault(int(b), []).append((s, 1))  # node is end of s
-        half_seg, half_shape, half_sign, half_div, basis_node = [], [], [], [], []
-        half_cap: list[tuple[int, int]] = []
-        cap_nodes: list[int] = []
-        cap_radius: list[float] = []
-        node_first_basis: dict[int, int] = {}
-        node_degree: dict[int, int] = {}
-        for node in sorted(incident):
-            inc = incident[node]
-            node_degree[node] = len(inc)
-            if len(inc) < 2:
-                if rules.end_caps:
-                    s_in, end_in = inc[0]
-                    half_seg.append((s_in, s_in))
-                    half_shape.append((1 if end_in == 1 else 0, 0))
-                    half_sign.append((1 if end_in == 1 else -1, 0))
-                    half_div.append((1.0 / seg_len[s_in], -1.0))
-                    half_cap.append((-1, len(cap_nodes)))
-                    basis_node.append(node)
-                    cap_nodes.append(node)
-                    cap_radius.append(float(seg_radius[s_in]))
-                continue
-            s_in, end_in = inc[0]
-            for s_out, end_out in inc[1:]:
-                # "in" half: current flows toward the node on s_in
-                #   node is end of s_in (end_in == 1): +t, shape u (index 1)
-                #   node is start of s_in: -t, shape 1-u (index 0)
-                sign_in = 1 if end_in == 1 else -1
-                shape_in = 1 if end_in == 1 else 0
-                # "out" half: current flows away from the node on s_out
-                #   node is start of s_out: +t, shape 1-u (index 0)
-                #   node is end of s_out: -t, shape u (index 1)
-                sign_out = 1 if end_out == 0 else -1
-                shape_out = 0 if end_out == 0 else 1
-                node_first_basis.setdefault(node, len(basis_node))
-                half_seg.append((s_in, s_out))
-                half_shape.append((shape_in, shape_out))
-                half_sign.append((sign_in, sign_out))
-                half_div.append((1.0 / seg_len[s_in], -1.0 / seg_len[s_out]))
-                half_cap.append((-1, -1))
-                basis_node.append(node)
-        if not basis_node:
+        basis = _bases(seg_nodes, seg_len, seg_radius, len(node_arr), rules.end_caps)
+        if basis is None:
             raise GeometryError("the structure has no node shared by two segments: no current")
+        (half_seg, half_shape, half_sign, half_div, half_cap, basis_node, cap_nodes, cap_radius,
+         node_first_basis, node_degree) = basis
 
         mesh = Mesh(
             structure=self,
@@ -715,24 +702,25 @@ class Structure:
             seg_radius=seg_radius,
             seg_wire=seg_wire,
             seg_piece=seg_piece,
-            half_seg=np.asarray(half_seg, dtype=np.int64),
-            half_shape=np.asarray(half_shape, dtype=np.int64),
-            half_sign=np.asarray(half_sign, dtype=np.int64),
-            half_div=np.asarray(half_div, dtype=float),
-            half_cap=np.asarray(half_cap, dtype=np.int64).reshape(-1, 2),
-            cap_nodes=np.asarray(cap_nodes, dtype=np.int64),
-            cap_radius=np.asarray(cap_radius, dtype=float),
-            basis_node=np.asarray(basis_node, dtype=np.int64),
+            half_seg=half_seg,
+            half_shape=half_shape,
+            half_sign=half_sign,
+            half_div=half_div,
+            half_cap=half_cap,
+            cap_nodes=cap_nodes,
+            cap_radius=cap_radius,
+            basis_node=basis_node,
             port_vectors=np.zeros((len(basis_node), 0)),
             load_vectors=np.zeros((len(basis_node), 0)),
             port_nodes=[],
             load_nodes=[],
         )
+        mesh.__dict__["seg_distance"] = seg_dist
 
         def gap_node(kind: str, i: int, pos: NDArray[np.float64]) -> int:
             dist = np.linalg.norm(node_arr - pos, axis=1)
             node = int(np.argmin(dist))
-            deg = node_degree.get(node, 0)
+            deg = int(node_degree[node])
             if deg != 2:
                 where = "a free wire end" if deg == 1 else f"a junction of {deg} segments"
                 raise GeometryError(
@@ -748,7 +736,7 @@ class Structure:
             if node in used:
                 raise GeometryError(f"port {i} shares its node with {used[node]}")
             used[node] = f"port {i}"
-            pv.append(_gap_vector(mesh, node_first_basis[node], p.gap_m))
+            pv.append(_gap_vector(mesh, int(node_first_basis[node]), p.gap_m))
             pn.append(node)
         lv, ln = [], []
         for i, ld in enumerate(self.loads):
@@ -756,7 +744,7 @@ class Structure:
             if node in used:
                 raise GeometryError(f"load {i} shares its node with {used[node]}")
             used[node] = f"load {i}"
-            lv.append(_gap_vector(mesh, node_first_basis[node], 0.0))
+            lv.append(_gap_vector(mesh, int(node_first_basis[node]), 0.0))
             ln.append(node)
         n = mesh.n_unknowns
         mesh.port_vectors = np.stack(pv, axis=1) if pv else np.zeros((n, 0))
@@ -773,35 +761,36 @@ def _check_clearance(
     seg_wire: NDArray[np.int64],
     seg_len: NDArray[np.float64],
     seg_radius: NDArray[np.float64],
-) -> None:
+) -> NDArray[np.float64]:
     """Refuse segments that touch or cross unless they are neighbours along the conductor.
 
     Two segments whose shortest path along the conductors (through shared nodes) is shorter than
     a few conductor sizes are neighbours; any other pair must keep their surfaces apart.
+    Returns the segment distances (S, S) in m.
     """
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import shortest_path
-
     s = len(seg_nodes)
-    extent = np.asarray([structure.wires[w].section.half_extent_m for w in seg_wire])
+    extent = np.array([w.section.half_extent_m for w in structure.wires])[seg_wire]
     starts = nodes[seg_nodes[:, 0]]
     ends = nodes[seg_nodes[:, 1]]
     dist = segment_distances(starts, ends, starts, ends)
     clearance = extent[:, None] + extent[None, :]
-    suspect = dist < clearance
-    np.fill_diagonal(suspect, False)
+    rows, cols = np.nonzero(np.triu(dist < clearance, 1))
     # segments sharing a node are neighbours by definition
-    share = (seg_nodes[:, None, :, None] == seg_nodes[None, :, None, :]).any(axis=(2, 3))
-    suspect &= ~share
-    if not suspect.any():
-        return
+    a, b = seg_nodes[rows], seg_nodes[cols]
+    share = ((a[:, 0] == b[:, 0]) | (a[:, 0] == b[:, 1]) | (a[:, 1] == b[:, 0])
+             | (a[:, 1] == b[:, 1]))
+    rows, cols = rows[~share], cols[~share]
+    if not len(rows):
+        return dist
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import shortest_path
+
     n_nodes = len(nodes)
     graph = coo_matrix(
         (np.r_[seg_len, seg_len], (np.r_[seg_nodes[:, 0], seg_nodes[:, 1]],
                                    np.r_[seg_nodes[:, 1], seg_nodes[:, 0]])),
         shape=(n_nodes, n_nodes),
     ).tocsr()
-    rows, cols = np.nonzero(np.triu(suspect))
     involved = np.unique(np.r_[seg_nodes[rows].ravel(), seg_nodes[cols].ravel()])
     sp = shortest_path(graph, directed=False, indices=involved)
     pos = {int(nd): i for i, nd in enumerate(involved)}
@@ -820,6 +809,69 @@ def _check_clearance(
                 f"{clearance[r, c] * 1e3:.3g} mm"
             )
     del s
+    return dist
+
+
+def _bases(
+    seg_nodes: NDArray[np.int64],
+    seg_len: NDArray[np.float64],
+    seg_radius: NDArray[np.float64],
+    n_nodes: int,
+    end_caps: bool,
+) -> tuple | None:
+    """Triangle bases of a segmented structure (see the module docstring), or ``None``.
+
+    Nodes are visited in increasing order; at a node the segments meeting there are taken in
+    increasing order (the node as a start before the node as an end). A node shared by ``k``
+    segments carries ``k - 1`` bases from the first segment into each of the others; a free end
+    carries an end-cap basis when ``end_caps``.
+
+    Returns
+    -------
+    tuple or None
+        ``half_seg, half_shape, half_sign, half_div, half_cap, basis_node, cap_nodes,
+        cap_radius, node_first_basis, node_degree`` (see :class:`Mesh`; ``node_first_basis`` is
+        -1 at nodes without an inner basis), or ``None`` when there is no basis at all.
+    """
+    # incidences 2s + e: node seg_nodes[s, e] (e = 0 start, 1 end), grouped by node
+    node_of = seg_nodes.ravel()
+    order = np.argsort(node_of, kind="stable")
+    node_sorted = node_of[order]
+    degree = np.bincount(node_of, minlength=n_nodes)
+    group_start = np.cumsum(degree) - degree  # first incidence of each node in `order`
+    first = np.zeros(len(order), dtype=bool)
+    first[group_start[degree > 0]] = True
+    free_end = degree[node_sorted] == 1
+    take = ~first | (free_end & end_caps)
+    inc = order[take]  # one basis per taken incidence, in node order
+    if not len(inc):
+        return None
+    node = node_sorted[take]
+    cap = free_end[take]
+    head = order[group_start[node]]  # the first incidence at the basis's node
+    s_in, end_in = head // 2, head % 2
+    s_out, end_out = inc // 2, inc % 2
+    n = len(inc)
+    # "in" half: current toward the node on s_in (+t with shape u when the node is its end)
+    # "out" half: current away from the node on s_out (+t with shape 1-u when it is its start)
+    half_seg = np.stack([s_in, np.where(cap, s_in, s_out)], axis=1)
+    half_shape = np.stack([end_in, np.where(cap, 0, end_out)], axis=1)
+    sign_in = np.where(end_in == 1, 1, -1)
+    half_sign = np.stack([sign_in, np.where(cap, 0, np.where(end_out == 0, 1, -1))], axis=1)
+    half_div = np.stack([1.0 / seg_len[s_in], np.where(cap, -1.0, -1.0 / seg_len[s_out])],
+                        axis=1)
+    cap_index = np.cumsum(cap) - 1
+    half_cap = np.stack([np.full(n, -1), np.where(cap, cap_index, -1)], axis=1)
+    cap_nodes = node[cap]
+    cap_radius = seg_radius[s_in[cap]].astype(float)
+    node_first_basis = np.full(n_nodes, -1, dtype=np.int64)
+    inner = np.flatnonzero(~cap)
+    nodes_inner, first_inner = np.unique(node[inner], return_index=True)
+    node_first_basis[nodes_inner] = inner[first_inner]
+    return (half_seg.astype(np.int64), half_shape.astype(np.int64),
+            half_sign.astype(np.int64), half_div, half_cap.astype(np.int64),
+            node.astype(np.int64), cap_nodes.astype(np.int64), cap_radius, node_first_basis,
+            degree)
 
 
 def _gap_vector(mesh: Mesh, basis: int, gap_m: float) -> NDArray[np.float64]:
@@ -858,7 +910,8 @@ def _gap_vector(mesh: Mesh, basis: int, gap_m: float) -> NDArray[np.float64]:
             remaining -= take
             if remaining <= 1e-15 * gap_m:
                 break
-            cand = [t for t in range(mesh.n_segments) if t != s and nxt in mesh.seg_nodes[t]]
+            cand = [t for t in np.flatnonzero((mesh.seg_nodes == nxt).any(axis=1)).tolist()
+                    if t != s]
             if len(cand) != 1:
                 raise GeometryError(
                     f"feed gap of {gap_m * 1e3:.3g} mm runs past a wire end or junction; "
@@ -871,20 +924,15 @@ def _gap_vector(mesh: Mesh, basis: int, gap_m: float) -> NDArray[np.float64]:
             direction = (1.0 if t_start else -1.0) if toward_nxt else (-1.0 if t_start else 1.0)
             s, at_node = t, nxt
     # integrate each basis over the intervals: int lambda(u) L du * (1/g) * (sign_h * dir)
-    for m in range(n):
-        total = 0.0
-        for h in range(2):
-            s = int(mesh.half_seg[m, h])
-            shape = int(mesh.half_shape[m, h])
-            sign = float(mesh.half_sign[m, h])
-            for s_i, u0, u1, direction in intervals:
-                if s_i != s:
-                    continue
-                L = seg_len[s]
-                if shape == 1:
-                    integ = 0.5 * (u1**2 - u0**2)
-                else:
-                    integ = (u1 - u0) - 0.5 * (u1**2 - u0**2)
-                total += sign * direction * integ * L
-        e[m] = total / gap_m
+    total = np.zeros((n, 2))
+    sign = mesh.half_sign.astype(float)
+    rising = mesh.half_shape == 1
+    for s_i, u0, u1, direction in intervals:
+        on = mesh.half_seg == s_i
+        if not on.any():
+            continue
+        up = 0.5 * (u1**2 - u0**2)
+        integ = np.where(rising, up, (u1 - u0) - up)
+        total += np.where(on, sign * direction * integ * seg_len[s_i], 0.0)
+    e[:] = total.sum(axis=1) / gap_m
     return e

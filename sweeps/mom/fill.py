@@ -27,20 +27,19 @@ from sweeps.materials import EPS0, MU0
 from sweeps.mom.kernel import (
     DynamicPoints,
     KernelRules,
+    PairTable,
     cap_static_integrals,
     near_pairs,
-    static_integrals,
+    static_pair_integrals,
 )
 
 __all__ = ["MatrixFill"]
 
-
-def _weighted_take(a: NDArray, flat: NDArray, coef: NDArray) -> NDArray:
-    """``sum_ab coef[a, b] * a.flat[flat[a, b]]`` per frequency: (F, N, N) from (F, ...)."""
-    f = a.shape[0]
-    taken = a.reshape(f, -1)[:, flat]  # (F, 2, 2, N, N)
-    return (taken[:, 0, 0] * coef[0, 0] + taken[:, 0, 1] * coef[0, 1]
-            + taken[:, 1, 0] * coef[1, 0] + taken[:, 1, 1] * coef[1, 1])
+#: Bytes of temporaries per kernel point pair and frequency (real arguments, sines, the two
+#: parts) and per matrix entry and frequency (the complex results and the assembly copy).
+_BYTES_PER_POINT = 40
+_BYTES_PER_ENTRY = 48
+_CHUNK_BYTES = 64e6
 
 
 class MatrixFill:
@@ -57,95 +56,133 @@ class MatrixFill:
 
     Notes
     -----
-    Memory: the dynamic part holds ``(S Q)^2`` distances (``Q`` Gauss points per segment) and,
-    per frequency in flight, ``(S Q)^2`` complex kernel values; frequencies are processed in
-    chunks that keep this below about 256 MB.
+    The kernel integrals are computed per group of geometrically identical segment pairs
+    (:class:`~sweeps.mom.kernel.PairTable`) and mapped onto the basis functions by two sparse
+    *assembly matrices* (``N^2`` rows; one entry per pair of basis halves): the vector potential
+    ``V = A_V a_V`` and the scalar potential ``S = A_S a_S`` for the stacked per-group integrals
+    ``a``. The static parts are assembled once; each frequency costs the dynamic kernel on the
+    groups and two sparse products.
+
+    Memory: frequencies are processed in chunks that keep the temporaries below about 64 MB.
     """
 
     def __init__(self, mesh: Mesh, kernel: str = "exact", rules: KernelRules | None = None):
         self.mesh = mesh
         self.kernel = kernel
         self.rules = rules or KernelRules()
-        starts, ends = mesh.seg_start, mesh.seg_end
-        near = near_pairs(starts, ends, mesh.seg_radius, self.rules)
-        static = static_integrals(starts, ends, mesh.seg_radius, kernel, self.rules, near)
-        self._dyn = DynamicPoints(starts, ends, mesh.seg_radius, kernel, self.rules)
+        starts, ends, radius = mesh.seg_start, mesh.seg_end, mesh.seg_radius
+        near = near_pairs(starts, ends, radius, self.rules, mesh.seg_distance)
+        self.pairs = PairTable(starts, ends, radius, near)
+        static = static_pair_integrals(self.pairs, starts, ends, radius, kernel, self.rules)
+        self._dyn = DynamicPoints(starts, ends, radius, kernel, self.rules, self.pairs)
         self._n_caps = len(mesh.cap_nodes)
         if self._n_caps:
             cap_pos = mesh.nodes[mesh.cap_nodes]
-            self._cap_static = cap_static_integrals(cap_pos, mesh.cap_radius, starts, ends)
+            cap_seg, cap_cap = cap_static_integrals(cap_pos, mesh.cap_radius, starts, ends)
             self._dyn.set_caps(cap_pos, mesh.cap_radius)
+        else:
+            cap_seg, cap_cap = np.zeros((0, mesh.n_segments)), np.zeros((0, 0))
+        self._assemble_maps()
+        n = self.n_unknowns
+        self.static_vector = self._vector(static.reshape(1, -1)).reshape(n, n)
+        src = np.concatenate([static.sum(axis=(1, 2)), cap_seg.ravel(), cap_cap.ravel()])
+        self.static_scalar = self._scalar(src[None]).reshape(n, n)
+        self._grams = self._gram_matrices()
 
-        idx = 2 * mesh.half_seg + mesh.half_shape  # (N, 2) index into shape space
-        tdir = mesh.seg_dir
+    # ------------------------------------------------------------------ assembly
+    def _assemble_maps(self) -> None:
+        """Sparse assembly matrices from per-group integrals to basis-function potentials.
+
+        ``V[m, n] = sum_ab s_ma s_nb (t_ma . t_nb) A[(p_ma, i_ma), (p_nb, j_nb)]`` and
+        ``S[m, n] = sum_ab d_ma d_nb Phi[e_ma, e_nb]`` over the halves ``a, b`` of bases ``m, n``
+        (sign ``s``, direction ``t``, segment ``p``, shape ``i``, divergence ``d``, charge
+        element ``e``: its segment or its end cap). ``A`` of a pair ``p > q`` is that of
+        ``(q, p)`` transposed.
+        """
+        from scipy.sparse import csr_matrix
+
+        mesh = self.mesh
         n = mesh.n_unknowns
-        self._idx = idx
-        # charge element of each half: its segment, or S + cap index for an end cap
-        self._seg = np.where(mesh.half_cap >= 0, mesh.n_segments + mesh.half_cap, mesh.half_seg)
-        # coefficient of each half pair (a, b) for the vector and scalar potentials
+        s = mesh.n_segments
+        c = self._n_caps
+        k = self.pairs.size
+        index = self.pairs.index
+        seg, shape = mesh.half_seg, mesh.half_shape
+        sign = mesh.half_sign.astype(float)
+        tdir = mesh.seg_dir
+        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg)
+        v_cols, v_vals, s_cols, s_vals = [], [], [], []
+        for a in range(2):
+            for b in range(2):
+                p = seg[:, a][:, None]
+                q = seg[:, b][None, :]
+                i = shape[:, a][:, None]
+                j = shape[:, b][None, :]
+                v_cols.append(4 * index[p, q] + np.where(p <= q, 2 * i + j, 2 * j + i))
+                v_vals.append((sign[:, a][:, None] * sign[:, b][None, :])
+                              * (tdir[seg[:, a]] @ tdir[seg[:, b]].T))
+                ea = elem[:, a][:, None]
+                eb = elem[:, b][None, :]
+                ca, cb = ea >= s, eb >= s
+                pair = index[np.minimum(ea, s - 1), np.minimum(eb, s - 1)]
+                cap_cap = k + c * s + (ea - s) * c + (eb - s)
+                cap_seg = k + np.where(ca, (ea - s) * s + eb, (eb - s) * s + ea)
+                s_cols.append(np.where(~ca & ~cb, pair, np.where(ca & cb, cap_cap, cap_seg)))
+                s_vals.append(mesh.half_div[:, a][:, None] * mesh.half_div[:, b][None, :])
+        # four entries per row m N + n, one per pair of halves (a, b) (zeros kept: an end-cap
+        # half carries no axial current); duplicate columns in a row add up in the product
+        indptr = np.arange(0, 4 * n * n + 1, 4)
+        self._amap_v = csr_matrix(
+            (np.stack(v_vals, axis=-1).ravel(), np.stack(v_cols, axis=-1).ravel(), indptr),
+            shape=(n * n, 4 * k))
+        self._amap_s = csr_matrix(
+            (np.stack(s_vals, axis=-1).ravel(), np.stack(s_cols, axis=-1).ravel(), indptr),
+            shape=(n * n, k + c * s + c * c))
+
+    def _vector(self, a: NDArray) -> NDArray:
+        """Vector potential (F, N*N) from per-group shape integrals (F, 4K)."""
+        return (self._amap_v @ a.T).T
+
+    def _scalar(self, a: NDArray) -> NDArray:
+        """Scalar potential (F, N*N) from the charge integrals: groups, cap-segment, cap-cap."""
+        return (self._amap_s @ a.T).T
+
+    def _gram_matrices(self) -> list[tuple[int, NDArray[np.int64], NDArray[np.int64], NDArray]]:
+        """Gram matrices ``int f_m . f_n dl`` of each wire (for the conductor loss), sparse.
+
+        One ``(wire, rows, cols, values)`` per wire: the entries of the bases sharing a segment
+        of that wire, from the exact mass matrix of two linear shapes,
+        ``L [[1/3, 1/6], [1/6, 1/3]]``.
+        """
+        mesh = self.mesh
+        n = mesh.n_unknowns
         sgn = mesh.half_sign.astype(float)
-        tvec = tdir[mesh.half_seg] * sgn[..., None]  # (N, 2, 3): current direction of each half
-        self._cv = np.einsum("mac,nbc->abmn", tvec, tvec)  # (2, 2, N, N)
-        self._cs = np.einsum("ma,nb->abmn", mesh.half_div, mesh.half_div)
-        self.static_vector = self._gather_vector(static[None])[0]
-        caps = (self._cap_static[0][None], self._cap_static[1][None]) if self._n_caps else None
-        self.static_scalar = self._gather_scalar(static[None], caps)[0]
-
-        # Gram matrices of each wire, int f_m . f_n dl over its segments (for the loss), kept
-        # sparse: (rows, cols, values) of the entries of bases sharing a segment of that wire
-        self._grams: list[tuple[int, NDArray[np.int64], NDArray[np.int64], NDArray]] = []
-        length = mesh.seg_length
+        m_idx, h_idx = np.nonzero(sgn != 0)
+        seg = mesh.half_seg[m_idx, h_idx]
+        order = np.argsort(seg, kind="stable")
+        m_idx, h_idx, seg = m_idx[order], h_idx[order], seg[order]
+        # every ordered pair of halves on the same segment (groups of equal `seg`)
+        starts = np.flatnonzero(np.r_[True, seg[1:] != seg[:-1]])
+        sizes = np.diff(np.r_[starts, len(seg)])
+        size_of = np.repeat(sizes, sizes)  # group size of each half
+        first_of = np.repeat(starts, sizes)  # group start of each half
+        left = np.repeat(np.arange(len(seg)), size_of)
+        offset = np.arange(len(left)) - np.repeat(np.cumsum(size_of) - size_of, size_of)
+        right = np.repeat(first_of, size_of) + offset
         mass = np.array([[1.0 / 3.0, 1.0 / 6.0], [1.0 / 6.0, 1.0 / 3.0]])
-        halves = [(m, h) for m in range(n) for h in range(2) if sgn[m, h] != 0]
-        by_seg: dict[int, list[tuple[int, int]]] = {}
-        for m, h in halves:
-            by_seg.setdefault(int(mesh.half_seg[m, h]), []).append((m, h))
+        ml, hl, mr, hr = m_idx[left], h_idx[left], m_idx[right], h_idx[right]
+        s_l = seg[left]
+        vals = (sgn[ml, hl] * sgn[mr, hr] * mesh.seg_length[s_l]
+                * mass[mesh.half_shape[ml, hl], mesh.half_shape[mr, hr]])
+        wire = mesh.seg_wire[s_l]
+        out = []
         for wi in np.unique(mesh.seg_wire):
-            acc: dict[tuple[int, int], float] = {}
-            for seg, members in by_seg.items():
-                if mesh.seg_wire[seg] != wi:
-                    continue
-                for m, a_ in members:
-                    for q, b_ in members:
-                        val = (sgn[m, a_] * sgn[q, b_] * length[seg]
-                               * mass[mesh.half_shape[m, a_], mesh.half_shape[q, b_]])
-                        acc[(m, q)] = acc.get((m, q), 0.0) + val
-            keys = list(acc)
-            rows = np.array([k[0] for k in keys], dtype=np.int64)
-            cols = np.array([k[1] for k in keys], dtype=np.int64)
-            vals = np.array([acc[k] for k in keys])
-            self._grams.append((int(wi), rows, cols, vals))
-
-    # ------------------------------------------------------------------ gathers
-    def _gather_vector(self, a: NDArray) -> NDArray:
-        """``sum_ab cv_ab * A[idx_a, idx_b]`` for a stack ``a`` of shape (F, 2S, 2S)."""
-        if not hasattr(self, "_vflat"):
-            side = a.shape[-1]
-            i = self._idx
-            self._vflat = (i[:, None, :, None] * side + i[None, :, None, :]).transpose(2, 3, 0, 1)
-            self._vcoef = self._cv
-        return _weighted_take(a, self._vflat, self._vcoef)
-
-    def _gather_scalar(
-        self, a: NDArray, caps: tuple[NDArray, NDArray] | None = None
-    ) -> NDArray:
-        """``sum_ab cs_ab * Phi[elem_a, elem_b]`` over charge elements (segments, then caps)."""
-        f = a.shape[0]
-        s = a.shape[1] // 2
-        c = 0 if caps is None else caps[1].shape[-1]
-        side = s + c
-        phi = np.empty((f, side, side), dtype=a.dtype if caps is None else complex)
-        phi[:, :s, :s] = a.reshape(f, s, 2, s, 2).sum(axis=(2, 4))
-        if caps is not None:
-            cap_seg, cap_cap = caps
-            phi[:, s:, :s] = cap_seg
-            phi[:, :s, s:] = np.swapaxes(cap_seg, 1, 2)
-            phi[:, s:, s:] = cap_cap
-        if getattr(self, "_sside", None) != side:
-            e = self._seg
-            self._sflat = (e[:, None, :, None] * side + e[None, :, None, :]).transpose(2, 3, 0, 1)
-            self._sside = side
-        return _weighted_take(phi, self._sflat, self._cs)
+            on = wire == wi
+            key = ml[on] * n + mr[on]
+            uniq, inv = np.unique(key, return_inverse=True)
+            acc = np.bincount(inv.reshape(-1), weights=vals[on], minlength=len(uniq))
+            out.append((int(wi), uniq // n, uniq % n, acc))
+        return out
 
     # ------------------------------------------------------------------ public
     @property
@@ -153,8 +190,9 @@ class MatrixFill:
         return self.mesh.n_unknowns
 
     def _chunk(self) -> int:
-        per = (self._dyn.r.size * 16) * 3 + 1
-        return max(1, int(256e6 // per))
+        n = self.n_unknowns
+        per = self._dyn.points_in_flight * _BYTES_PER_POINT + n * n * _BYTES_PER_ENTRY + 1
+        return max(1, int(_CHUNK_BYTES // per))
 
     def potentials(self, f_hz: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
         """Exact vector- and scalar-potential matrices ``V``, ``S``: each (F, N, N).
@@ -167,11 +205,17 @@ class MatrixFill:
         sca = np.empty((len(f), n, n), dtype=complex)
         step = self._chunk()
         for i0 in range(0, len(f), step):
-            k = 2.0 * np.pi * f[i0: i0 + step] * np.sqrt(MU0 * EPS0)
-            dyn = self._dyn.integrals(k)
-            vec[i0: i0 + step] = self._gather_vector(dyn) + self.static_vector[None]
-            caps = self._dyn.cap_integrals(k) if self._n_caps else None
-            sca[i0: i0 + step] = self._gather_scalar(dyn, caps) + self.static_scalar[None]
+            sl = slice(i0, i0 + step)
+            k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
+            dyn = self._dyn.pair_integrals(k)  # (F, K, 5)
+            vec[sl] = self._vector(dyn[:, :, :4].reshape(len(k), -1)).reshape(-1, n, n)
+            vec[sl] += self.static_vector
+            parts = [dyn[:, :, 4]]
+            if self._n_caps:
+                cs, cc = self._dyn.cap_integrals(k)
+                parts += [cs.reshape(len(k), -1), cc.reshape(len(k), -1)]
+            sca[sl] = self._scalar(np.concatenate(parts, axis=1)).reshape(-1, n, n)
+            sca[sl] += self.static_scalar
         return vec, sca
 
     def efie_direct(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
@@ -179,7 +223,10 @@ class MatrixFill:
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         vec, sca = self.potentials(f)
         omega = 2.0 * np.pi * f
-        return (1j * omega * MU0)[:, None, None] * vec + sca / (1j * omega * EPS0)[:, None, None]
+        vec *= (1j * omega * MU0)[:, None, None]
+        sca /= (1j * omega * EPS0)[:, None, None]
+        vec += sca
+        return vec
 
     def efie(
         self, f_hz: NDArray[np.float64], *, interpolate: bool | None = None

@@ -41,7 +41,8 @@ from numpy.typing import NDArray
 
 from sweeps.mom.quadrature import gauss01, graded_gauss01, start_graded_gauss01
 
-__all__ = ["KernelRules", "static_integrals", "DynamicPoints", "near_pairs"]
+__all__ = ["KernelRules", "PairTable", "static_integrals", "static_pair_integrals",
+           "DynamicPoints", "near_pairs"]
 
 INV4PI = 1.0 / (4.0 * np.pi)
 
@@ -130,12 +131,17 @@ def near_pairs(
     ends: NDArray[np.float64],
     radius: NDArray[np.float64],
     rules: KernelRules,
+    dist: NDArray[np.float64] | None = None,
 ) -> NDArray[np.bool_]:
-    """Boolean ``(S, S)`` matrix of the segment pairs that need the near-field treatment."""
-    from sweeps.geometry import segment_distances
+    """Boolean ``(S, S)`` matrix of the segment pairs that need the near-field treatment.
 
+    ``dist`` are the segment distances (:attr:`sweeps.geometry.Mesh.seg_distance`) if known.
+    """
+    if dist is None:
+        from sweeps.geometry import segment_distances
+
+        dist = segment_distances(starts, ends, starts, ends)
     length = np.linalg.norm(ends - starts, axis=1)
-    dist = segment_distances(starts, ends, starts, ends)
     lmax = np.maximum(length[:, None], length[None, :])
     amax = np.maximum(radius[:, None], radius[None, :])
     return dist < np.maximum(rules.near_lengths * lmax, rules.near_radii * amax)
@@ -143,6 +149,154 @@ def near_pairs(
 
 def _pair_radius2(radius: NDArray[np.float64]) -> NDArray[np.float64]:
     return 0.5 * (radius[:, None] ** 2 + radius[None, :] ** 2)
+
+
+def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """First occurrence of each distinct row of an integer array and the group of every row."""
+    keys = np.ascontiguousarray(keys)
+    view = keys.view(np.dtype((np.void, keys.dtype.itemsize * keys.shape[1]))).ravel()
+    _, first, inverse = np.unique(view, return_index=True, return_inverse=True)
+    return first, inverse.reshape(-1)
+
+
+class PairTable:
+    """Segment pairs grouped by their relative geometry (translation invariance of the kernel).
+
+    The integrals of a pair of straight segments depend only on their lengths, radii and
+    directions, on the offset between their start points, and on whether the pair gets the
+    near-field rules. Pairs that agree in all of these (to 1e-12 of the structure's size) share
+    one computation: along a uniformly segmented straight wire the pair integrals form a Toeplitz
+    matrix (the classic observation for straight wires, e.g. R. F. Harrington, *Field
+    Computation by Moment Methods*, 1968, ch. 4; from memory), so ``S`` segments need ``S``
+    pairs computed instead of ``S^2``. Structures without repeated geometry simply get one group
+    per pair.
+
+    Only pairs ``p <= q`` are grouped; the integrals of ``(q, p)`` are those of ``(p, q)``
+    transposed (the Galerkin matrix is symmetric), exactly as when every pair is computed.
+
+    Parameters
+    ----------
+    starts, ends : ndarray, shape (S, 3)
+        Segment end points in m.
+    radius : ndarray, shape (S,)
+        Equivalent radius of each segment in m.
+    near : ndarray of bool, shape (S, S)
+        :func:`near_pairs`.
+
+    Attributes
+    ----------
+    p, q : ndarray of int, shape (K,)
+        The representative pair of each group (``p <= q``).
+    near : ndarray of bool, shape (K,)
+    index : ndarray of int, shape (S, S)
+        Group of the pair ``(min(a, b), max(a, b))`` for segments ``a, b``.
+    """
+
+    def __init__(
+        self,
+        starts: NDArray[np.float64],
+        ends: NDArray[np.float64],
+        radius: NDArray[np.float64],
+        near: NDArray[np.bool_],
+    ) -> None:
+        s = len(starts)
+        delta = ends - starts
+        length = np.linalg.norm(delta, axis=1)
+        pts = np.concatenate([starts, ends])
+        res = 1e-12 * max(float(np.max(np.ptp(pts, axis=0))), 1e-300)
+        feat = np.column_stack([length / res, radius / res, delta / length[:, None] * 1e12])
+        _, cls = _unique_rows(np.rint(feat).astype(np.int64))
+        rows, cols = np.triu_indices(s)
+        offset = np.rint((starts[cols] - starts[rows]) / res).astype(np.int64)
+        keys = np.column_stack([cls[rows], cls[cols], near[rows, cols], offset])
+        first, group = _unique_rows(keys)
+        self.p = rows[first]
+        self.q = cols[first]
+        self.near = near[self.p, self.q]
+        self.index = np.empty((s, s), dtype=np.int64)
+        self.index[rows, cols] = group
+        self.index[cols, rows] = group
+
+    @property
+    def size(self) -> int:
+        """Number of groups ``K``."""
+        return len(self.p)
+
+    def expand(self, values: NDArray) -> NDArray:
+        """Full ``(..., 2S, 2S)`` shape-space array from per-group values ``(..., K, 2, 2)``."""
+        s = self.index.shape[0]
+        full = values[..., self.index, :, :]  # (..., S, S, 2, 2): [a, b, i, j] of pair (a, b)
+        lower = np.tril(np.ones((s, s), dtype=bool), -1)
+        full[..., lower, :, :] = np.swapaxes(full[..., lower, :, :], -1, -2)
+        lead = values.shape[:-3]
+        return np.moveaxis(full, -2, -3).reshape(*lead, 2 * s, 2 * s)
+
+
+def static_pair_integrals(
+    pairs: PairTable,
+    starts: NDArray[np.float64],
+    ends: NDArray[np.float64],
+    radius: NDArray[np.float64],
+    kernel: str,
+    rules: KernelRules,
+) -> NDArray[np.float64]:
+    """Static part ``L_p L_q int int lambda_i lambda_j / (4 pi R)`` of every pair group.
+
+    Returns
+    -------
+    ndarray, shape (K, 2, 2)
+        ``[k, i, j]`` for the representative ``(p, q)`` of group ``k`` (shape ``i`` on ``p``,
+        ``j`` on ``q``), in m.
+    """
+    length = np.linalg.norm(ends - starts, axis=1)
+    tdir = (ends - starts) / length[:, None]
+    fac = 2.0 if kernel == "exact" else 1.0
+    out = np.empty((pairs.size, 2, 2))
+
+    # far groups: plain Gauss rule on both segments
+    far = np.flatnonzero(~pairs.near)
+    if len(far):
+        p, q = pairs.p[far], pairs.q[far]
+        u, w = gauss01(rules.static_far)
+        lam_w = _lambda(u) * w[:, None]  # (Q, 2)
+        pp = starts[p][:, None, :] + u[None, :, None] * (ends - starts)[p][:, None, :]
+        pq = starts[q][:, None, :] + u[None, :, None] * (ends - starts)[q][:, None, :]
+        d2 = 0.0
+        for c in range(3):
+            dc = pp[:, :, None, c] - pq[:, None, :, c]
+            d2 = d2 + dc * dc
+        extra2 = fac * 0.5 * (radius[p] ** 2 + radius[q] ** 2)
+        g = 1.0 / np.sqrt(d2 + extra2[:, None, None])  # (n, Q, Q)
+        out[far] = (lam_w.T @ g @ lam_w) * (INV4PI * length[p] * length[q])[:, None, None]
+
+    # near groups: outer graded Gauss on p, closed-form inner integral on q, ring average
+    near = np.flatnonzero(pairs.near)
+    if len(near):
+        rows, cols = pairs.p[near], pairs.q[near]
+        uo, wo = graded_gauss01(rules.near_outer)
+        if kernel == "exact":
+            tphi, wphi = start_graded_gauss01(rules.near_phi)
+            phi = np.pi * tphi  # (1/pi) int_0^pi dphi = int_0^1 dt
+            ring2 = (2.0 * np.sin(0.5 * phi)) ** 2  # times a^2
+        else:
+            wphi = np.ones(1)
+            ring2 = np.ones(1)
+        a2 = 0.5 * (radius[rows] ** 2 + radius[cols] ** 2)
+        r_out = (starts[rows][:, None, :]
+                 + uo[None, :, None] * (ends[rows] - starts[rows])[:, None, :])  # (n, K, 3)
+        q0 = starts[cols][:, None, None, :]
+        tq = tdir[cols][:, None, None, :]
+        lq = length[cols][:, None, None]
+        rho2 = a2[:, None, None] * ring2[None, None, :]
+        j0, j1 = line_integrals(r_out[:, :, None, :], q0, tq, lq, rho2)  # (n, K, P)
+        jbar = np.stack([j0 @ wphi, j1 @ wphi], axis=-1)  # (n, K, 2)
+        lam_o = _lambda(uo) * wo[:, None]  # (K, 2)
+        vals = (lam_o.T @ jbar) * (INV4PI * length[rows])[:, None, None]
+        # a self pair is stored transposed (as the full-matrix fill always did)
+        diag = rows == cols
+        vals[diag] = np.swapaxes(vals[diag], 1, 2)
+        out[near] = vals
+    return out
 
 
 def static_integrals(
@@ -171,66 +325,34 @@ def static_integrals(
     ndarray, shape (2S, 2S)
         Entry ``[2p + i, 2q + j]`` in m (length x length / length).
     """
-    s = len(starts)
-    length = np.linalg.norm(ends - starts, axis=1)
-    tdir = (ends - starts) / length[:, None]
     if near is None:
         near = near_pairs(starts, ends, radius, rules)
-    extra2 = _pair_radius2(radius) * (2.0 if kernel == "exact" else 1.0)
+    pairs = PairTable(starts, ends, radius, near)
+    return pairs.expand(static_pair_integrals(pairs, starts, ends, radius, kernel, rules))
 
-    # far pairs: plain Gauss rule on both segments
-    u, w = gauss01(rules.static_far)
-    lam_w = _lambda(u) * w[:, None]  # (Q, 2)
-    pts = starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]  # (S, Q, 3)
-    q = rules.static_far
-    out = np.empty((s, 2, s, 2))
-    chunk = max(1, int(2e7 // (s * q * q + 1)))
-    flat = pts.reshape(-1, 3)
-    sq = np.sum(flat * flat, axis=1)
-    for p0 in range(0, s, chunk):
-        p1 = min(s, p0 + chunk)
-        blk = pts[p0:p1].reshape(-1, 3)
-        d2 = np.maximum(np.sum(blk * blk, axis=1)[:, None] + sq[None, :] - 2.0 * blk @ flat.T,
-                        0.0).reshape(p1 - p0, q, s, q)
-        g = 1.0 / np.sqrt(d2 + extra2[p0:p1, None, :, None])  # (c, Q, S, Q)
-        tmp = (g @ lam_w).reshape(p1 - p0, q, 2 * s)  # contract v
-        out[p0:p1] = np.matmul(lam_w.T, tmp).reshape(p1 - p0, 2, s, 2)  # contract u
-    out *= INV4PI * length[:, None, None, None] * length[None, None, :, None]
 
-    # near pairs: outer graded Gauss on p, closed-form inner integral on q, ring average
-    rows, cols = np.nonzero(np.triu(near))
-    if len(rows):
-        uo, wo = graded_gauss01(rules.near_outer)
-        if kernel == "exact":
-            tphi, wphi = start_graded_gauss01(rules.near_phi)
-            phi = np.pi * tphi
-            wphi = wphi  # (1/pi) int_0^pi dphi = int_0^1 dt
-            ring2 = (2.0 * np.sin(0.5 * phi)) ** 2  # times a^2
-        else:
-            wphi = np.ones(1)
-            ring2 = np.ones(1)
-        a2 = _pair_radius2(radius)[rows, cols]
-        r_out = (starts[rows][:, None, :]
-                 + uo[None, :, None] * (ends[rows] - starts[rows])[:, None, :])  # (n, K, 3)
-        q0 = starts[cols][:, None, None, :]
-        tq = tdir[cols][:, None, None, :]
-        lq = length[cols][:, None, None]
-        rho2 = a2[:, None, None] * ring2[None, None, :]
-        j0, j1 = line_integrals(r_out[:, :, None, :], q0, tq, lq, rho2)  # (n, K, P)
-        jbar = np.stack([j0 @ wphi, j1 @ wphi], axis=-1)  # (n, K, 2)
-        lam_o = _lambda(uo) * wo[:, None]  # (K, 2)
-        vals = np.einsum("ki,nkj->nij", lam_o, jbar) * (INV4PI * length[rows])[:, None, None]
-        out[rows, :, cols, :] = vals
-        out[cols, :, rows, :] = np.transpose(vals, (0, 2, 1))
-    return out.reshape(2 * s, 2 * s)
+def _dynamic_kernel(k: NDArray[np.float64], r: NDArray[np.float64],
+                    inv4pir: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
+    """Real and imaginary part of ``(e^{-jkR} - 1)/(4 pi R)`` for every ``k``: (F, ...) each.
+
+    ``e^{-jx} - 1 = -2 sin^2(x/2) - j sin x`` keeps full relative accuracy for small ``x``
+    (no cancellation) and needs two real sines instead of a complex exponential.
+    """
+    x = k.reshape(-1, *([1] * r.ndim)) * r[None]
+    half = np.sin(0.5 * x)
+    re = -2.0 * half * half * inv4pir
+    im = np.sin(x)
+    im *= -inv4pir
+    return re, im
 
 
 class DynamicPoints:
     """Frequency-independent data for the dynamic part ``(e^{-jkR} - 1)/(4 pi R)``.
 
-    Holds the Gauss points of every segment and their pair distances (with the kernel's radius
-    term), so that each frequency costs one complex exponential per point pair and two small
-    contractions.
+    Holds the Gauss points of every segment and, for every pair group of a
+    :class:`PairTable`, the distances between the points of its representative pair (with the
+    kernel's radius term), so that each frequency costs two real sines per point pair of the
+    groups and one small contraction.
     """
 
     def __init__(
@@ -240,22 +362,41 @@ class DynamicPoints:
         radius: NDArray[np.float64],
         kernel: str,
         rules: KernelRules,
+        pairs: PairTable | None = None,
     ) -> None:
+        if pairs is None:
+            pairs = PairTable(starts, ends, radius, np.zeros((len(starts),) * 2, dtype=bool))
         self.s = len(starts)
         self.q = rules.dynamic
         u, w = gauss01(self.q)
         self.lam_w = _lambda(u) * w[:, None]  # (Q, 2)
         length = np.linalg.norm(ends - starts, axis=1)
-        pts = (starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]).reshape(-1, 3)
-        extra2 = _pair_radius2(radius) * (2.0 if kernel == "exact" else 1.0)
-        extra2 = np.repeat(np.repeat(extra2, self.q, axis=0), self.q, axis=1)
-        d2 = np.sum((pts[:, None, :] - pts[None, :, :]) ** 2, axis=-1)
-        self.r = np.sqrt(d2 + extra2)  # (SQ, SQ)
+        pts = starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]  # (S, Q, 3)
+        p, q = pairs.p, pairs.q
+        fac = 2.0 if kernel == "exact" else 1.0
+        d2 = 0.0
+        for c in range(3):
+            dc = pts[p][:, :, None, c] - pts[q][:, None, :, c]
+            d2 = d2 + dc * dc
+        extra2 = fac * 0.5 * (radius[p] ** 2 + radius[q] ** 2)
+        self.r = np.sqrt(d2 + extra2[:, None, None]).reshape(len(p), -1)  # (K, Q^2)
         self.inv4pir = INV4PI / self.r
-        self.scale = length[:, None] * length[None, :]  # (S, S)
+        # weights of the point pairs (u, v) for the four shape pairs (i, j) and for the charge
+        # (sum over the shapes: w_u w_v): (Q^2, 5), times L_p L_q of each group
+        lam2 = np.einsum("ui,vj->uvij", self.lam_w, self.lam_w).reshape(self.q**2, 4)
+        self.weights = np.column_stack([lam2, np.outer(w, w).reshape(-1)])
+        self.scale = length[p] * length[q]  # (K,)
         self.length = length
         self.w = w
-        self.pts = pts
+        self.pts = pts.reshape(-1, 3)
+
+    @property
+    def points_in_flight(self) -> int:
+        """Point pairs evaluated per frequency (for memory chunking)."""
+        n = self.r.size
+        if hasattr(self, "cap_r"):
+            n += self.cap_r.size + self.cap_cap_r.size
+        return n
 
     def set_caps(self, cap_pos: NDArray[np.float64], cap_radius: NDArray[np.float64]) -> None:
         """Prepare cap-to-segment and cap-to-cap distances (see :func:`cap_static_integrals`)."""
@@ -272,25 +413,25 @@ class DynamicPoints:
         """Dynamic cap integrals for wavenumbers ``k``: shapes (F, C, S) and (F, C, C)."""
         k = np.atleast_1d(np.asarray(k, dtype=float))
         c = self.cap_r.shape[0]
-        g = np.expm1(-1j * k[:, None, None] * self.cap_r[None]) * (INV4PI / self.cap_r)[None]
-        g = (g * self.cap_weights).reshape(len(k), c, self.s, self.q).sum(axis=-1)
-        gc = np.expm1(-1j * k[:, None, None] * self.cap_cap_r[None]) * (
-            INV4PI / self.cap_cap_r)[None]
-        return g, gc
+        re, im = _dynamic_kernel(k, self.cap_r, INV4PI / self.cap_r)
+        re = (re * self.cap_weights).reshape(len(k), c, self.s, self.q).sum(axis=-1)
+        im = (im * self.cap_weights).reshape(len(k), c, self.s, self.q).sum(axis=-1)
+        rc, ic = _dynamic_kernel(k, self.cap_cap_r, INV4PI / self.cap_cap_r)
+        return re + 1j * im, rc + 1j * ic
 
-    def integrals(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
-        """Dynamic ``A_pq[i, j]`` for wavenumbers ``k`` (1/m): shape ``(F, 2S, 2S)``."""
+    def pair_integrals(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
+        """Dynamic integrals of every pair group for wavenumbers ``k`` (1/m): (F, K, 5).
+
+        Columns 0-3: ``A_pq[i, j]`` for ``(i, j) = (0, 0), (0, 1), (1, 0), (1, 1)``; column 4:
+        their sum (the charge integral of the scalar potential), in m.
+        """
         k = np.atleast_1d(np.asarray(k, dtype=float))
-        s, q = self.s, self.q
-        g = np.expm1(-1j * k[:, None, None] * self.r[None]) * self.inv4pir[None]
-        g = g.reshape(len(k), s, q, s, q)
-        tmp = g @ self.lam_w  # (F, S, Q, S, 2)
-        # contract u: (F, S, Q, S*2) with lam_w (Q, 2) -> (F, S, 2, S*2)
-        out = np.matmul(self.lam_w.T, tmp.reshape(len(k), s, q, 2 * s))
-        out = out.reshape(len(k), s, 2, s, 2)
-        out *= self.scale[None, :, None, :, None]
-        return out.reshape(len(k), 2 * s, 2 * s)
-
+        re, im = _dynamic_kernel(k, self.r, self.inv4pir)  # (F, K, Q^2) each
+        out = np.empty((len(k), self.r.shape[0], 5), dtype=complex)
+        out.real = re @ self.weights
+        out.imag = im @ self.weights
+        out *= self.scale[None, :, None]
+        return out
 
 # --------------------------------------------------------------------------- end caps
 #
