@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -75,17 +76,19 @@ def peak_gain(
     ``4 pi U / P_rad``. The maximum of a ``step_deg`` grid over the sphere is refined by fitting
     a parabola through the grid neighbours in theta and phi (the pattern of an antenna this size
     is smooth on that scale: for a dipole-like ``sin^2`` lobe the refined peak is within 0.01 dB).
+    A structure in a plane ``z = const`` (every printed shape) radiates the same at ``theta``
+    and ``pi - theta``, so only the upper half of the grid is computed.
     """
     k = 2.0 * math.pi * solution.f_hz[index] / C0
     cur = solution.currents[index][:, port]
     points = solver.pattern_points
     nt = int(round(180.0 / step_deg)) + 1
     npf = int(round(360.0 / step_deg))
-    theta = np.radians(np.linspace(0.0, 180.0, nt))
-    phi = np.radians(np.arange(npf) * step_deg)
-    tt, pp = np.meshgrid(theta, phi, indexing="ij")
-    u = radiation_intensity(points, cur, k, directions(tt.ravel(), pp.ravel()))[:, 0]
-    grid = u.reshape(nt, npf)
+    mirror = bool(getattr(points, "planar_z", False)) and nt % 2 == 1
+    rows = nt // 2 + 1 if mirror else nt
+    theta, phi, dirs = _pattern_grid(step_deg, rows)
+    u = radiation_intensity(points, cur, k, dirs)[:, 0].reshape(rows, npf)
+    grid = np.concatenate([u, u[-2::-1]]) if mirror else u
     i, j = np.unravel_index(int(np.argmax(grid)), grid.shape)
     h = math.radians(step_deg)
 
@@ -107,6 +110,20 @@ def peak_gain(
     gain = 10.0 * math.log10(4.0 * math.pi * u_best / p_in) if p_in > 0 else -math.inf
     direc = 10.0 * math.log10(4.0 * math.pi * u_best / p_rad) if p_rad > 0 else -math.inf
     return gain, direc, d_best[0]
+
+
+@lru_cache(maxsize=8)
+def _pattern_grid(step_deg: float, rows: int) -> tuple[NDArray, NDArray, NDArray]:
+    """Angles (rad) of the pattern-search grid and the directions of its first ``rows`` rows."""
+    nt = int(round(180.0 / step_deg)) + 1
+    npf = int(round(360.0 / step_deg))
+    theta = np.radians(np.linspace(0.0, 180.0, nt))
+    phi = np.radians(np.arange(npf) * step_deg)
+    tt, pp = np.meshgrid(theta[:rows], phi, indexing="ij")
+    dirs = directions(tt.ravel(), pp.ravel())
+    for a in (theta, phi, dirs):
+        a.setflags(write=False)
+    return theta, phi, dirs
 
 
 def evaluate(

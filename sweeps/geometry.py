@@ -356,11 +356,12 @@ class Mesh:
         half-extent is added for the trace's own width.
         """
         if "_enclosing" not in self.__dict__:
-            pts = np.unique(np.vstack([w.points for w in self.structure.wires]), axis=0)
-            if len(pts) <= 2:  # a straight wire: the ball on its two ends
+            wires = self.structure.wires
+            if len(wires) == 1 and len(wires[0].points) == 2:  # a straight wire: its two ends
+                pts = wires[0].points
                 r = 0.5 * float(np.linalg.norm(pts[-1] - pts[0]))
             else:
-                _, r = min_enclosing_ball(pts)
+                _, r = min_enclosing_ball(np.unique(np.vstack([w.points for w in wires]), axis=0))
             extent = max(w.section.half_extent_m for w in self.structure.wires)
             self.__dict__["_enclosing"] = r + extent
         return self.__dict__["_enclosing"]
@@ -684,7 +685,8 @@ class Structure:
 
         # --- duplicate segments and overlap / touching between non-neighbouring segments
         key = np.sort(seg_nodes, axis=1)
-        if len(np.unique(key[:, 0] * len(node_arr) + key[:, 1])) != len(key):
+        key = np.sort(key[:, 0] * len(node_arr) + key[:, 1])
+        if np.any(key[1:] == key[:-1]):
             raise GeometryError("two wires overlap: the same segment appears twice")
         seg_dist = _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
 
@@ -866,8 +868,9 @@ def _bases(
     cap_radius = seg_radius[s_in[cap]].astype(float)
     node_first_basis = np.full(n_nodes, -1, dtype=np.int64)
     inner = np.flatnonzero(~cap)
-    nodes_inner, first_inner = np.unique(node[inner], return_index=True)
-    node_first_basis[nodes_inner] = inner[first_inner]
+    on = node[inner]  # in node order: the first inner basis of a node starts its run
+    first_inner = inner[np.r_[True, on[1:] != on[:-1]]] if len(inner) else inner
+    node_first_basis[node[first_inner]] = first_inner
     return (half_seg.astype(np.int64), half_shape.astype(np.int64),
             half_sign.astype(np.int64), half_div, half_cap.astype(np.int64),
             node.astype(np.int64), cap_nodes.astype(np.int64), cap_radius, node_first_basis,

@@ -171,12 +171,28 @@ def s11_from_z(zin: NDArray[np.complex128], z0_ohm: float) -> NDArray[np.complex
     return (zin - z0_ohm) / (zin + z0_ohm)
 
 
-def resonances_hz(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]) -> NDArray[np.float64]:
+def _zin_spline(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]):  # noqa: ANN202
+    """Cubic spline (not-a-knot, scipy) of a complex band array, or ``None`` below 4 samples.
+
+    The spline is linear in the data, so its imaginary part is the spline of ``Im Zin``: one
+    spline serves the resonance search and the values at the target.
+    """
+    if len(f_hz) < 4:
+        return None
+    from scipy.interpolate import CubicSpline
+
+    return CubicSpline(f_hz, zin)
+
+
+def resonances_hz(
+    f_hz: NDArray[np.float64], zin: NDArray[np.complex128], *, spline: object | None = None
+) -> NDArray[np.float64]:
     """Frequencies where ``Im Zin`` changes sign between samples.
 
     Each root is found between the two samples that bracket it on a cubic spline of the
     reactance (with 4 or more samples), otherwise by linear interpolation. The spline passes
-    through the samples, so the bracket holds and the root stays between them.
+    through the samples, so the bracket holds and the root stays between them. ``spline`` is
+    the complex spline of ``zin`` if already built (:func:`_zin_spline`).
     """
     x = np.imag(zin)
     idx = np.nonzero(np.signbit(x[:-1]) != np.signbit(x[1:]))[0]
@@ -185,18 +201,32 @@ def resonances_hz(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]) -> NDA
     linear = f0 - x0 * (f1 - f0) / (x1 - x0)
     if len(f_hz) < 4 or not len(idx):
         return linear
-    from scipy.interpolate import CubicSpline
     from scipy.optimize import brentq
 
-    spline = CubicSpline(f_hz, x)
+    if spline is None:
+        spline = _zin_spline(f_hz, zin)
+    coef = spline.c[:, idx, ...].imag.reshape(4, len(idx))  # the cubic of each bracket
     roots = linear.copy()
     for k, (a, b, xa, xb) in enumerate(zip(f0, f1, x0, x1, strict=True)):
         if xa == 0.0:
             roots[k] = a
-        elif xb == 0.0:
+            continue
+        if xb == 0.0:
             roots[k] = b
-        elif np.signbit(spline(a)) != np.signbit(spline(b)):  # round-off can spoil the bracket
-            roots[k] = brentq(lambda t: float(spline(t)), a, b, xtol=1e-9 * b, rtol=1e-14)
+            continue
+        c3, c2, c1, c0 = (float(v) for v in coef[:, k])
+
+        def piece(t: float, a: float = a, b: float = b, xb: float = xb, c0: float = c0,
+                  c1: float = c1, c2: float = c2, c3: float = c3) -> float:
+            # the spline between the samples a and b (at b itself: the sample, as the spline is
+            # evaluated there), summed in the order scipy's PPoly uses
+            if t == b:
+                return xb
+            s = t - a
+            return c0 + c1 * s + c2 * (s * s) + c3 * (s * s * s)
+
+        if np.signbit(piece(a)) != np.signbit(piece(b)):  # round-off can spoil the bracket
+            roots[k] = brentq(piece, a, b, xtol=1e-9 * b, rtol=1e-14)
     return roots
 
 
@@ -213,14 +243,18 @@ def _match(f_hz: NDArray[np.float64], mag: NDArray[np.float64]) -> float:
     return float(f_hz[i] + 0.5 * h * (y0 - y2) / denom)
 
 
-def _at(f_hz: NDArray[np.float64], values: NDArray[np.complex128], at_hz: float) -> complex:
-    """Cubic-spline value of a complex band array at ``at_hz`` (exact on the samples)."""
+def _at(f_hz: NDArray[np.float64], values: NDArray[np.complex128], at_hz: float,
+        spline: object | None = None) -> complex:
+    """Cubic-spline value of a complex band array at ``at_hz`` (exact on the samples).
+
+    ``spline`` is the spline of ``values`` if already built (:func:`_zin_spline`).
+    """
     if len(f_hz) < 4:
         return complex(np.interp(at_hz, f_hz, values.real) + 1j * np.interp(at_hz, f_hz,
                                                                              values.imag))
-    from scipy.interpolate import CubicSpline
-
-    return complex(CubicSpline(f_hz, values)(at_hz))
+    if spline is None:
+        spline = _zin_spline(f_hz, values)
+    return complex(spline(at_hz))
 
 
 def band_edges(
@@ -443,7 +477,9 @@ def compute_metrics(
         s11 = s11_from_z(zin, z0_ohm)
         mag = np.abs(s11)
         ms.arrays.update(f_hz=f_hz, zin=zin, s11=s11)
-        _impedance_metrics(ms, f_hz, zin, mag, target_hz, z0_ohm)
+        spline = _zin_spline(f_hz, zin)
+        zt = _at(f_hz, zin, target_hz, spline)
+        _impedance_metrics(ms, f_hz, zin, mag, target_hz, z0_ohm, spline, zt)
         _q_metrics(ms, f_hz, zin, enclosing_radius_m, why["chu_ratio"])
         if efficiency is None:
             ms.set("efficiency", None, why["efficiency"])
@@ -456,7 +492,7 @@ def compute_metrics(
             ms.set("gain_dbi", None, why["gain_dbi"])
         else:
             ms.set("gain_dbi", gain_dbi, "gain is not finite (accepted power <= 0)")
-        _switch_metrics(ms, f_hz, zin, target_hz, switch, gain_dbi, reader)
+        _switch_metrics(ms, f_hz, zin, target_hz, switch, gain_dbi, reader, zt)
     for name in METRIC_NAMES:  # every name present, even if a branch above skipped it
         if name not in ms.values:
             ms.set(name, None, "not computed")
@@ -464,15 +500,15 @@ def compute_metrics(
 
 
 def _impedance_metrics(ms: MetricSet, f_hz: NDArray[np.float64], zin: NDArray[np.complex128],
-                       mag: NDArray[np.float64], target_hz: float, z0_ohm: float) -> None:
-    res = resonances_hz(f_hz, zin)
+                       mag: NDArray[np.float64], target_hz: float, z0_ohm: float,
+                       spline: object | None, zt: complex) -> None:
+    res = resonances_hz(f_hz, zin, spline=spline)
     if len(res):
         ms.set("resonance_mhz", float(res[np.argmin(np.abs(res - target_hz))]) / 1e6)
     else:
         ms.set("resonance_mhz", None, "Im Zin does not cross zero inside the band")
     f_match = _match(f_hz, mag)
     ms.set("match_mhz", f_match / 1e6)
-    zt = _at(f_hz, zin, target_hz)
     st = (zt - z0_ohm) / (zt + z0_ohm)
     ms.set("s11_db", 20.0 * np.log10(abs(st)) if abs(st) > 0 else None,
            "S11 is exactly 0 at the target (perfect match): no finite dB value")
@@ -534,7 +570,7 @@ def _q_metrics(ms: MetricSet, f_hz: NDArray[np.float64], zin: NDArray[np.complex
 
 def _switch_metrics(ms: MetricSet, f_hz: NDArray[np.float64], zin: NDArray[np.complex128],
                     target_hz: float, switch: SwitchStates | None, gain_dbi: float | None,
-                    reader: Reader | None) -> None:
+                    reader: Reader | None, za: complex) -> None:
     names = ("gamma_closed", "gamma_open", "modulation_depth", "modulation_factor",
              "delta_rcs_dbsm", "read_range_m")
     if switch is None:
@@ -550,7 +586,6 @@ def _switch_metrics(ms: MetricSet, f_hz: NDArray[np.float64], zin: NDArray[np.co
         modulation_depth=backscatter.modulation_depth(g_closed, g_open),
         modulation_factor=backscatter.modulation_factor(g_closed, g_open),
     )
-    za = _at(f_hz, zin, target_hz)
     if not za.real > 0:
         reason = (f"Re Zin = {za.real:.4g} ohm <= 0 at the target: power-wave reflection "
                   "coefficients need a positive antenna resistance")

@@ -19,6 +19,7 @@ from sweeps.mom.quadrature import gauss01
 
 __all__ = [
     "CurrentPoints",
+    "MergedPoints",
     "directions",
     "sphere_grid",
     "radiation_vector",
@@ -57,6 +58,60 @@ class CurrentPoints:
         elem = self.weights[:, :, None, :] * cur[:, None, :, None]  # (N, q, K, 3)
         return self.positions.reshape(-1, 3), elem.reshape(-1, cur.shape[1], 3)
 
+    def merged(self) -> MergedPoints:
+        """The same current elements with coincident points added up (:class:`MergedPoints`)."""
+        return MergedPoints(self)
+
+    @classmethod
+    def midpoints(cls, mesh: Mesh) -> MergedPoints:
+        """The one-point (midpoint) rule merged per segment: one current element per segment.
+
+        Both basis halves on a segment sit at its midpoint with weight ``sign t L / 2``; this
+        equals ``CurrentPoints(mesh, 1).merged()`` without searching for coincident points.
+        """
+        n = mesh.n_unknowns
+        s = mesh.n_segments
+        delta = mesh.seg_end - mesh.seg_start
+        w = np.zeros((s, n))
+        m = np.repeat(np.arange(n), 2)
+        np.add.at(w, (mesh.half_seg.ravel(), m), 0.5 * mesh.half_sign.ravel().astype(float))
+        out = MergedPoints.__new__(MergedPoints)
+        out.positions = 0.5 * (mesh.seg_start + mesh.seg_end)
+        out._weights = (delta[:, :, None] * w[:, None, :]).reshape(s * 3, n)
+        z = out.positions[:, 2]
+        out.planar_z = bool(np.all(z == z[0]) and not np.any(delta[:, 2]))
+        return out
+
+
+class MergedPoints:
+    """Current elements of :class:`CurrentPoints` summed over coincident points.
+
+    With the midpoint rule the two basis halves on a segment share its midpoint, so the far
+    field needs one phase factor per segment instead of one per half. Same interface as
+    :class:`CurrentPoints` (:meth:`elements`).
+    """
+
+    def __init__(self, points: CurrentPoints) -> None:
+        pos = points.positions.reshape(-1, 3)
+        n, q = points.weights.shape[:2]
+        self.positions, inverse = np.unique(pos, axis=0, return_inverse=True)
+        u = len(self.positions)
+        # weights[u, c, m]: sum of the weights of basis m at point u
+        w = np.zeros((u, 3, n))
+        basis = np.repeat(np.arange(n), q)
+        np.add.at(w, (inverse.reshape(-1), slice(None), basis), points.weights.reshape(-1, 3))
+        self._weights = w.reshape(u * 3, n)
+        z = self.positions[:, 2]
+        #: all points in one plane z = const with no z-directed current: the pattern is the same
+        #: at theta and pi - theta (mirror symmetry through that plane)
+        self.planar_z = bool(np.all(z == z[0]) and not np.any(w[:, 2, :]))
+
+    def elements(self, currents: NDArray[np.complex128]) -> tuple[NDArray, NDArray]:
+        """Current elements for currents of shape (N,) or (N, K): positions (U, 3), (U, K, 3)."""
+        cur = currents if currents.ndim == 2 else currents[:, None]
+        elem = (self._weights @ cur).reshape(len(self.positions), 3, cur.shape[1])
+        return self.positions, elem.transpose(0, 2, 1)
+
 
 def directions(theta: NDArray[np.float64], phi: NDArray[np.float64]) -> NDArray[np.float64]:
     """Unit vectors for spherical angles (rad), shape ``theta.shape + (3,)``."""
@@ -91,14 +146,17 @@ def sphere_grid(
 
 
 def radiation_vector(
-    points: CurrentPoints,
+    points: CurrentPoints | MergedPoints,
     currents: NDArray[np.complex128],
     k: float,
     r_hat: NDArray[np.float64],
 ) -> NDArray[np.complex128]:
     """``A(r_hat) = sum I t dl e^{jk r_hat . r}``: shape (D, K, 3) (A m) for directions (D, 3)."""
     pos, elem = points.elements(np.asarray(currents))
-    phase = np.exp(1j * k * (r_hat @ pos.T))  # (D, P)
+    arg = k * (r_hat @ pos.T)  # (D, P)
+    phase = np.empty(arg.shape, dtype=complex)  # e^{j arg} from real cosines and sines
+    phase.real = np.cos(arg)
+    phase.imag = np.sin(arg)
     n_k = elem.shape[1]
     return (phase @ elem.reshape(len(pos), -1)).reshape(len(r_hat), n_k, 3)
 
@@ -108,7 +166,7 @@ def _perp(a: NDArray[np.complex128], r_hat: NDArray[np.float64]) -> NDArray[np.c
 
 
 def radiation_intensity(
-    points: CurrentPoints,
+    points: CurrentPoints | MergedPoints,
     currents: NDArray[np.complex128],
     k: float,
     r_hat: NDArray[np.float64],

@@ -107,37 +107,36 @@ class MatrixFill:
         c = self._n_caps
         k = self.pairs.size
         index = self.pairs.index
-        seg, shape = mesh.half_seg, mesh.half_shape
-        sign = mesh.half_sign.astype(float)
-        tdir = mesh.seg_dir
-        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg)
-        v_cols, v_vals, s_cols, s_vals = [], [], [], []
-        for a in range(2):
-            for b in range(2):
-                p = seg[:, a][:, None]
-                q = seg[:, b][None, :]
-                i = shape[:, a][:, None]
-                j = shape[:, b][None, :]
-                v_cols.append(4 * index[p, q] + np.where(p <= q, 2 * i + j, 2 * j + i))
-                v_vals.append((sign[:, a][:, None] * sign[:, b][None, :])
-                              * (tdir[seg[:, a]] @ tdir[seg[:, b]].T))
-                ea = elem[:, a][:, None]
-                eb = elem[:, b][None, :]
-                ca, cb = ea >= s, eb >= s
-                pair = index[np.minimum(ea, s - 1), np.minimum(eb, s - 1)]
-                cap_cap = k + c * s + (ea - s) * c + (eb - s)
-                cap_seg = k + np.where(ca, (ea - s) * s + eb, (eb - s) * s + ea)
-                s_cols.append(np.where(~ca & ~cb, pair, np.where(ca & cb, cap_cap, cap_seg)))
-                s_vals.append(mesh.half_div[:, a][:, None] * mesh.half_div[:, b][None, :])
+        # axes [a, b, m, n]: half a of basis m against half b of basis n
+        seg, shape = mesh.half_seg.T, mesh.half_shape.T  # (2, N)
+        p, q = seg[:, None, :, None], seg[None, :, None, :]
+        i, j = shape[:, None, :, None], shape[None, :, None, :]
+        v_cols = 4 * index[p, q] + np.where(p <= q, 2 * i + j, 2 * j + i)
+        tvec = mesh.seg_dir[seg] * mesh.half_sign.T[:, :, None]  # (2, N, 3) current directions
+        v_vals = (tvec.reshape(-1, 3) @ tvec.reshape(-1, 3).T).reshape(2, n, 2, n)
+        v_vals = v_vals.transpose(0, 2, 1, 3)
+        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).T  # (2, N)
+        on_seg = np.minimum(elem, s - 1)
+        pair = index[on_seg[:, None, :, None], on_seg[None, :, None, :]]
+        cap = elem - s  # >= 0 for an end cap
+        ea, eb = elem[:, None, :, None], elem[None, :, None, :]
+        ca, cb = cap[:, None, :, None], cap[None, :, None, :]
+        cap_seg = k + np.where(ca >= 0, ca * s + eb, cb * s + ea)
+        cap_cap = k + c * s + ca * c + cb
+        s_cols = np.where((ca < 0) & (cb < 0), pair,
+                          np.where((ca >= 0) & (cb >= 0), cap_cap, cap_seg))
+        div = mesh.half_div.T
+        s_vals = div[:, None, :, None] * div[None, :, None, :]
         # four entries per row m N + n, one per pair of halves (a, b) (zeros kept: an end-cap
         # half carries no axial current); duplicate columns in a row add up in the product
         indptr = np.arange(0, 4 * n * n + 1, 4)
-        self._amap_v = csr_matrix(
-            (np.stack(v_vals, axis=-1).ravel(), np.stack(v_cols, axis=-1).ravel(), indptr),
-            shape=(n * n, 4 * k))
-        self._amap_s = csr_matrix(
-            (np.stack(s_vals, axis=-1).ravel(), np.stack(s_cols, axis=-1).ravel(), indptr),
-            shape=(n * n, k + c * s + c * c))
+
+        def rows(x: NDArray) -> NDArray:
+            return x.transpose(2, 3, 0, 1).ravel()
+
+        self._amap_v = csr_matrix((rows(v_vals), rows(v_cols), indptr), shape=(n * n, 4 * k))
+        self._amap_s = csr_matrix((rows(s_vals), rows(s_cols), indptr),
+                                  shape=(n * n, k + c * s + c * c))
 
     def _vector(self, a: NDArray) -> NDArray:
         """Vector potential (F, N*N) from per-group shape integrals (F, 4K)."""
@@ -176,12 +175,14 @@ class MatrixFill:
                 * mass[mesh.half_shape[ml, hl], mesh.half_shape[mr, hr]])
         wire = mesh.seg_wire[s_l]
         out = []
-        for wi in np.unique(mesh.seg_wire):
+        for wi in range(len(mesh.structure.wires)):
             on = wire == wi
+            if not on.any():
+                continue
             key = ml[on] * n + mr[on]
-            uniq, inv = np.unique(key, return_inverse=True)
-            acc = np.bincount(inv.reshape(-1), weights=vals[on], minlength=len(uniq))
-            out.append((int(wi), uniq // n, uniq % n, acc))
+            used = np.flatnonzero(np.bincount(key, minlength=n * n))
+            acc = np.bincount(key, weights=vals[on], minlength=n * n)[used]
+            out.append((wi, used // n, used % n, acc))
         return out
 
     # ------------------------------------------------------------------ public

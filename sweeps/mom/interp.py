@@ -5,12 +5,14 @@ E. H. Newman, "Generation of wide-band data from the method of moments by interp
 impedance matrix", IEEE Trans. AP 36(12), 1820-1824, 1988, the rapidly varying phase of each
 entry is removed first: with ``d_mn`` the distance between the nodes of bases ``m`` and ``n``,
 
-    ``H_V(k) = V_mn(k) e^{jk d_mn}``,   ``H_S(k) = S_mn(k) e^{jk d_mn}``
+    ``W_mn(k) = k Z_mn(k) e^{jk d_mn}``
+    ``        = (j c mu k^2 V_mn(k) - j S_mn(k) / (c eps)) e^{jk d_mn}``
 
-vary slowly with the wavenumber ``k`` (what is left of the phase is at most ``k (R - d_mn)``
-with ``|R - d_mn|`` below two segment lengths). They are filled exactly at a few Chebyshev nodes
-of the band and interpolated by barycentric Lagrange interpolation; the factors ``j omega mu`` and
-``1/(j omega eps)`` are applied exactly.
+varies slowly with the wavenumber ``k`` (what is left of the phase is at most ``k (R - d_mn)``
+with ``|R - d_mn|`` below two segment lengths; the factor ``k`` removes the ``1/k`` of the scalar
+potential's ``1/(j omega eps)``, so ``W`` is as smooth as the potentials themselves). It is
+filled exactly at a few Chebyshev nodes of the band and interpolated by barycentric Lagrange
+interpolation.
 
 Error control. The degree is chosen from the phase bound (:func:`_nodes_needed`), and the
 interpolant is checked against a direct fill at the lowest frequency of the band, where the
@@ -23,10 +25,9 @@ about 1e-10 with four nodes, and input impedances agree with direct fills within
 (``tests/sweeps/test_interp.py``); issue 8 asks for 0.5 %, the tests hold 1e-5.
 
 Cost. With ``n`` nodes, one frequency costs ``2n`` real multiply-adds per matrix entry (the
-interpolation, as one real matrix product: the coefficients ``j omega mu L_j(k)`` and
-``L_j(k) / (j omega eps)`` are purely imaginary, so the factor ``j`` is folded into the node
-data) and two complex multiplications (the phase, by a recurrence over uniformly spaced
-frequencies applied in blocks).
+interpolation ``Z(k) = e^{-jkd} sum_j (L_j(k) / k) W(k_j)`` has real coefficients, so it is one
+real matrix product on the (re, im) pairs of the node data) and two complex multiplications (the
+phase, by a recurrence over uniformly spaced frequencies applied in blocks).
 """
 
 from __future__ import annotations
@@ -108,7 +109,7 @@ class _Phase:
     def __call__(self, k: float | NDArray[np.float64]) -> NDArray[np.complex128]:
         """``e^{-jk d}`` flattened: (N*N,) for a scalar ``k``, (F, N*N) for an array."""
         kk = np.asarray(k, dtype=float)
-        return _expi(-kk[..., None] * self.values)[..., self.inverse]
+        return np.take(_expi(-kk[..., None] * self.values), self.inverse, axis=-1)
 
 
 def _phase(fill: MatrixFill) -> _Phase:
@@ -174,27 +175,21 @@ def _nodes_needed(span_k: float, rho: float) -> int:
 class _Interpolant:
     """Phase-extracted node data of one band piece, ready to be evaluated at any ``k``."""
 
-    def __init__(self, fill: MatrixFill, nodes: NDArray[np.float64], vec: NDArray,
-                 sca: NDArray) -> None:
+    def __init__(self, fill: MatrixFill, nodes: NDArray[np.float64], z: NDArray) -> None:
         self.fill = fill
         self.nodes = nodes
         self.phase = _phase(fill)
         n = len(nodes)
-        # j e^{+jk_i d} times the node potentials, as real (re, im) pairs: the interpolation is
-        # then one real matrix product for all frequencies
-        ph = 1j * np.conj(self.phase(nodes))  # (n, N*N)
-        stack = np.empty((2 * n, ph.shape[1]), dtype=complex)
-        np.multiply(vec.reshape(n, -1), ph, out=stack[:n])
-        np.multiply(sca.reshape(n, -1), ph, out=stack[n:])
-        self.stack = stack.view(float)  # (2n, 2 N*N)
+        # W(k_j) = k_j Z(k_j) e^{+jk_j d}, as real (re, im) pairs: the interpolation is then one
+        # real matrix product for all frequencies
+        stack = np.conj(self.phase(nodes))  # (n, N*N)
+        stack *= z.reshape(n, -1)
+        stack *= nodes[:, None]
+        self.stack = stack.view(float)  # (n, 2 N*N)
 
     def __call__(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Interpolated EFIE matrices at wavenumbers ``k``: (F, N, N)."""
-        lag = barycentric_weights(self.nodes, k)  # (F, n)
-        omega = k / C_INV
-        # h = jwmu sum_j L_j H_V,j + 1/(jweps) sum_j L_j H_S,j; with the j in the stack
-        coef = np.concatenate([lag * (omega * MU0)[:, None],
-                               lag * (-1.0 / (omega * EPS0))[:, None]], axis=1)  # (F, 2n)
+        coef = barycentric_weights(self.nodes, k) / k[:, None]  # (F, n)
         n = self.fill.n_unknowns
         out = np.empty((len(k), n, n), dtype=complex)
         np.matmul(coef, self.stack, out=out.reshape(len(k), -1).view(float))
@@ -213,10 +208,9 @@ def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0) -> NDArray[
             return fill.efie_direct(f)
         nodes = chebyshev_nodes(lo, hi, n_nodes)
         # one batched exact fill: the nodes and the check frequency at the low band edge
-        vec, sca = fill.potentials(np.append(nodes, lo) / (2.0 * np.pi * C_INV))
-        interp = _Interpolant(fill, nodes, vec[:-1], sca[:-1])
-        omega0 = lo / C_INV
-        z_chk = 1j * omega0 * MU0 * vec[-1] + sca[-1] / (1j * omega0 * EPS0)
+        z_nodes = fill.efie_direct(np.append(nodes, lo) / (2.0 * np.pi * C_INV))
+        interp = _Interpolant(fill, nodes, z_nodes[:-1])
+        z_chk = z_nodes[-1]
         z_int = interp(np.array([lo]))[0]
         err = float(np.linalg.norm(z_int - z_chk) / np.linalg.norm(z_chk))
         if err <= INTERP_TOL:

@@ -36,6 +36,8 @@ function integrated with a Gauss rule; there the exact kernel's ring average is 
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from numpy.typing import NDArray
 
@@ -151,12 +153,34 @@ def _pair_radius2(radius: NDArray[np.float64]) -> NDArray[np.float64]:
     return 0.5 * (radius[:, None] ** 2 + radius[None, :] ** 2)
 
 
+_HASH = np.random.default_rng(20261201).integers(1, 2**63, size=64, dtype=np.int64).view(
+    np.uint64) | np.uint64(1)
+
+
 def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
-    """First occurrence of each distinct row of an integer array and the group of every row."""
-    keys = np.ascontiguousarray(keys)
+    """First occurrence of each distinct row of an integer array and the group of every row.
+
+    Rows are grouped by a 64-bit multiplicative hash and the grouping is verified row by row
+    (a collision, never seen in practice, falls back to an exact row sort).
+    """
+    keys = np.ascontiguousarray(keys, dtype=np.int64)
+    if keys.shape[1] <= len(_HASH):
+        h = keys.view(np.uint64) @ _HASH[: keys.shape[1]]
+        _, first, inverse = np.unique(h, return_index=True, return_inverse=True)
+        inverse = inverse.reshape(-1)
+        if np.array_equal(keys[first][inverse], keys):
+            return first, inverse
     view = keys.view(np.dtype((np.void, keys.dtype.itemsize * keys.shape[1]))).ravel()
     _, first, inverse = np.unique(view, return_index=True, return_inverse=True)
     return first, inverse.reshape(-1)
+
+
+@lru_cache(maxsize=16)
+def _triu(s: int) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    rows, cols = np.triu_indices(s)
+    rows.setflags(write=False)
+    cols.setflags(write=False)
+    return rows, cols
 
 
 class PairTable:
@@ -204,11 +228,11 @@ class PairTable:
         length = np.linalg.norm(delta, axis=1)
         pts = np.concatenate([starts, ends])
         res = 1e-12 * max(float(np.max(np.ptp(pts, axis=0))), 1e-300)
-        feat = np.column_stack([length / res, radius / res, delta / length[:, None] * 1e12])
-        _, cls = _unique_rows(np.rint(feat).astype(np.int64))
-        rows, cols = np.triu_indices(s)
+        feat = np.rint(np.column_stack([length / res, radius / res,
+                                        delta / length[:, None] * 1e12])).astype(np.int64)
+        rows, cols = _triu(s)
         offset = np.rint((starts[cols] - starts[rows]) / res).astype(np.int64)
-        keys = np.column_stack([cls[rows], cls[cols], near[rows, cols], offset])
+        keys = np.column_stack([feat[rows], feat[cols], near[rows, cols], offset])
         first, group = _unique_rows(keys)
         self.p = rows[first]
         self.q = cols[first]

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass, field
+from functools import cached_property
 from typing import Literal, get_args
 
 import numpy as np
@@ -20,7 +21,7 @@ from numpy.typing import NDArray
 from sweeps.errors import SolverError
 from sweeps.geometry import Mesh, MeshRules, Structure
 from sweeps.materials import C0
-from sweeps.mom.fields import CurrentPoints, plane_wave_rhs, radiated_power
+from sweeps.mom.fields import CurrentPoints, MergedPoints, plane_wave_rhs, radiated_power
 from sweeps.mom.fill import MatrixFill
 from sweeps.mom.kernel import KernelRules
 
@@ -164,11 +165,20 @@ class Solver:
             segment_length_m=segment_length_m,
         )
         self.fill = MatrixFill(self.mesh, self.settings.kernel, self.settings.kernel_rules())
-        self.points = CurrentPoints(self.mesh, self.settings.field_order)
-        #: a lighter rule for pattern searches: the midpoint of each half (relative error of the
-        #: radiation vector ~ (k L / 2)^2 / 24, below 1e-3 for L <= lambda / 20)
-        self.pattern_points = CurrentPoints(self.mesh, 1)
         self.f_max_hz = f_max_hz
+
+    @cached_property
+    def points(self) -> CurrentPoints:
+        """Gauss points of the currents for far fields and plane waves (``field_order``)."""
+        return CurrentPoints(self.mesh, self.settings.field_order)
+
+    @cached_property
+    def pattern_points(self) -> MergedPoints:
+        """A lighter rule for pattern searches: the midpoint of each half, merged per segment.
+
+        Relative error of the radiation vector ~ (k L / 2)^2 / 24, below 1e-3 for L <= lambda / 20.
+        """
+        return CurrentPoints.midpoints(self.mesh)
 
     def matrices(self, f_hz: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
         """EFIE matrix and loss-plus-load matrix, each (F, N, N)."""
