@@ -13,11 +13,11 @@ from typing import Any
 
 import numpy as np
 
-from sweeps.errors import ConfigError
 from studies.points import Point, Record, point_id
 from studies.runner import ClusterSettings
 from studies.samplers import make_plan
 from studies.space import Space
+from sweeps.errors import ConfigError
 
 __all__ = ["StudyContext", "point_evaluator", "study_from_json"]
 

@@ -28,8 +28,8 @@ from typing import Any
 from sqlalchemy import delete, insert, select, update
 from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 
-from sweeps.errors import StoreError
 from studies.store import Store, lease_table
+from sweeps.errors import StoreError
 
 __all__ = ["Lease", "LeaseInfo", "lease_info", "process_start", "pid_alive"]
 

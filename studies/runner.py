@@ -38,10 +38,10 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Literal, get_args
 
-from sweeps.errors import ConfigError, FilamantError, StoreError
 from studies.lease import Lease
 from studies.points import Point, Record
 from studies.store import Store
+from sweeps.errors import ConfigError, FilamantError, StoreError
 
 __all__ = ["ClusterSettings", "JobSystem", "RunStats", "evaluate_batch", "make_jobqueue_cluster",
            "open_client", "run_points", "default_workers"]

@@ -26,8 +26,8 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy.stats import qmc
 
-from sweeps.errors import ConfigError
 from studies.space import Space, Value
+from sweeps.errors import ConfigError
 
 __all__ = [
     "Sampler",

@@ -57,17 +57,17 @@ from sqlalchemy import (
     delete,
     event,
     func,
-    inspect,
     insert,
+    inspect,
     select,
     update,
 )
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, IntegrityError, OperationalError, SQLAlchemyError
 
+from studies.points import Point, Record
 from sweeps import metrics as _metrics
 from sweeps.errors import StoreError
-from studies.points import Point, Record
 
 __all__ = ["Store", "StudyRecord", "METRIC_COLUMNS", "STORE_VERSION", "encode_array",
            "decode_array", "display_url", "sqlite_url_beside"]

@@ -15,10 +15,10 @@ import time
 import numpy as np
 import pytest
 from sqlalchemy import inspect, select, text, update
+from studies_store_support import fake_points, fake_record, postgres_url, unique_name
 
 from studies.lease import Lease, lease_info, pid_alive, process_start
 from studies.store import METRIC_COLUMNS, Store, lease_table
-from studies_store_support import fake_points, fake_record, postgres_url, unique_name
 from sweeps.errors import StoreError
 
 CONFIG = {"antenna": {"length_mm": 150, "width_mm": 2}, "sampler": {"points": 4}}
@@ -233,7 +233,7 @@ def test_reused_pid_is_not_alive():
 def test_heartbeat_thread_beats(url):
     store = Store(url)
     name = unique_name("beat")
-    with Lease.acquire(store, name, heartbeat_s=0.05) as lease:
+    with Lease.acquire(store, name, heartbeat_s=0.05):
         t0 = lease_info(store, name).heartbeat_at
         time.sleep(0.4)
         assert lease_info(store, name).heartbeat_at > t0
