@@ -130,7 +130,7 @@ def make_jobqueue_cluster(options: Mapping[str, Any]) -> tuple[Any, int]:
     cls = getattr(dask_jobqueue, _JOBQUEUE_CLASSES[system])
     if "cores" in opts:
         opts.setdefault("processes", opts["cores"])
-    opts.setdefault("scheduler_options", {"dashboard_address": None})
+    opts.setdefault("scheduler_options", {"dashboard_address": ":0"})
     try:
         cluster = cls(**opts)
     except (TypeError, ValueError) as exc:
@@ -159,8 +159,14 @@ def open_client(settings: ClusterSettings) -> Iterator[Any]:
         cluster, jobs = make_jobqueue_cluster(settings.jobqueue)
         cluster.scale(jobs=jobs)
     else:
-        cluster = LocalCluster(n_workers=settings.workers or default_workers(),
-                               threads_per_worker=1, processes=True, dashboard_address=None)
+        import dask
+
+        # one task per worker thread at a time: a worker that dies was running exactly the
+        # batch it is blamed for (dask counts every task on a dead worker as suspicious)
+        with dask.config.set({"distributed.scheduler.worker-saturation": 1.0}):
+            cluster = LocalCluster(n_workers=settings.workers or default_workers(),
+                                   threads_per_worker=1, processes=True,
+                                   dashboard_address=":0")
     try:
         client = Client(cluster)
         try:
@@ -313,15 +319,16 @@ def run_points(
             else:
                 k = batch_size()
                 batch = [queue.popleft() for _ in range(min(k, len(queue)))]
+            key = f"filamant-{tag}-{len(stats.batch_sizes)}-{batch[0].point_id}"
             fut = client.submit(task, study_json, [(p.point_id, p.params) for p in batch],
-                                pure=False, key=f"filamant-{tag}-{stats.batches + len(inflight)}"
-                                f"-{batch[0].point_id}")
+                                pure=False, key=key)
             stats.batch_sizes.append(len(batch))
             inflight[fut] = batch
             ac.add(fut)
 
     def handle(fut: Any, batch: list[Point]) -> None:
-        if fut.status == "finished":
+        status = fut.status
+        if status == "finished":
             records = fut.result()
             got = [r.point_id for r in records]
             if sorted(got) != sorted(p.point_id for p in batch):
@@ -334,10 +341,10 @@ def run_points(
             times.extend(r.elapsed_s for r in records if r.ok)
             bar.update(len(records))
             return
-        exc = fut.exception() if fut.status == "error" else None
-        if fut.status == "cancelled" or isinstance(exc, KilledWorker):
+        exc = fut.exception() if status == "error" else None
+        if status in ("cancelled", "lost") or isinstance(exc, KilledWorker):
             stats.lost_batches += 1
-            reason = f"worker died while evaluating it ({type(exc).__name__ if exc else 'lost'})"
+            reason = f"worker died while evaluating it ({type(exc).__name__ if exc else status})"
             ids = [p.point_id for p in batch]
             gone = set(store.record_lost_attempt(study, ids, reason, owner=lease.owner,
                                                  max_attempts=max_attempts))
@@ -367,7 +374,8 @@ def run_points(
         stats.interrupted = True
         logger.warning("interrupted: storing finished batches, cancelling the rest")
         for fut, batch in list(inflight.items()):
-            if fut.status == "finished":
+            status = fut.status
+        if status == "finished":
                 try:
                     handle(fut, batch)
                 except (FilamantError, OSError) as exc:  # pragma: no cover - best effort

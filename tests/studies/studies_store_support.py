@@ -93,3 +93,32 @@ def postgres_url() -> str:
 
 def unique_name(prefix: str = "t") -> str:
     return f"{prefix}_{uuid.uuid4().hex[:10]}"
+
+
+# -- worker tasks for runner tests (importable by spawned dask workers) ---------------------
+
+def fake_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
+    """A worker task that sleeps 20 ms per point and returns a made-up record."""
+    import time as _time
+
+    out = []
+    for pid, params in items:
+        _time.sleep(0.02)
+        seq = int(round(params["antenna.length_mm"] - 100.0))
+        rec = fake_record(Point(pid, params, seq))
+        rec.elapsed_s = 0.02
+        out.append(rec)
+    return out
+
+
+def poison_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
+    """Like :func:`fake_task`, but the worker process dies on a point whose length is 103 mm."""
+    for _pid, params in items:
+        if params["antenna.length_mm"] == 103.0:
+            os._exit(17)
+    return fake_task(study_json, items)
+
+
+def broken_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
+    """A task that fails as a whole (as when filamant is missing on a worker)."""
+    raise ModuleNotFoundError("No module named 'filamant_missing'")
