@@ -140,24 +140,65 @@ class MatrixFill:
         per = (self._dyn.r.size * 16) * 3 + 1
         return max(1, int(256e6 // per))
 
-    def efie(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
-        """EFIE part of Z (radiation and reactance, no losses): shape (F, N, N) in ohm."""
+    def potentials(self, f_hz: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
+        """Exact vector- and scalar-potential matrices ``V``, ``S``: each (F, N, N).
+
+        ``Z_efie = j omega mu V + S / (j omega eps)``; ``V`` in m, ``S`` in 1/m.
+        """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         n = self.n_unknowns
-        out = np.empty((len(f), n, n), dtype=complex)
+        vec = np.empty((len(f), n, n), dtype=complex)
+        sca = np.empty((len(f), n, n), dtype=complex)
         step = self._chunk()
         for i0 in range(0, len(f), step):
-            fc = f[i0: i0 + step]
-            omega = 2.0 * np.pi * fc
-            k = omega * np.sqrt(MU0 * EPS0)
+            k = 2.0 * np.pi * f[i0: i0 + step] * np.sqrt(MU0 * EPS0)
             dyn = self._dyn.integrals(k)
-            vec = self._gather_vector(dyn) + self.static_vector[None]
+            vec[i0: i0 + step] = self._gather_vector(dyn) + self.static_vector[None]
             caps = self._dyn.cap_integrals(k) if self._n_caps else None
-            sca = self._gather_scalar(dyn, caps) + self.static_scalar[None]
-            out[i0: i0 + step] = (1j * omega * MU0)[:, None, None] * vec + sca / (
-                1j * omega * EPS0
-            )[:, None, None]
-        return out
+            sca[i0: i0 + step] = self._gather_scalar(dyn, caps) + self.static_scalar[None]
+        return vec, sca
+
+    def efie_direct(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+        """EFIE matrix filled afresh at every frequency: shape (F, N, N) in ohm."""
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        vec, sca = self.potentials(f)
+        omega = 2.0 * np.pi * f
+        return (1j * omega * MU0)[:, None, None] * vec + sca / (1j * omega * EPS0)[:, None, None]
+
+    def efie(
+        self, f_hz: NDArray[np.float64], *, interpolate: bool | None = None
+    ) -> NDArray[np.complex128]:
+        """EFIE part of Z (radiation and reactance, no losses): shape (F, N, N) in ohm.
+
+        Parameters
+        ----------
+        f_hz : array_like, shape (F,)
+        interpolate : bool, optional
+            Use the frequency interpolation of :mod:`sweeps.mom.interp` (default: when the sweep
+            has enough points for it to pay off; it falls back to direct fills by itself when its
+            error check fails).
+        """
+        from sweeps.mom.interp import interpolated_efie
+
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        if interpolate is None:
+            interpolate = len(f) >= 16
+        if not interpolate:
+            return self.efie_direct(f)
+        return interpolated_efie(self, f)
+
+    @property
+    def basis_distance(self) -> NDArray[np.float64]:
+        """Distance between the nodes of every pair of bases in m, (N, N): the phase centres."""
+        if not hasattr(self, "_bdist"):
+            pos = self.mesh.nodes[self.mesh.basis_node]
+            self._bdist = np.linalg.norm(pos[:, None, :] - pos[None, :, :], axis=-1)
+        return self._bdist
+
+    @property
+    def basis_extent(self) -> float:
+        """Largest distance in m from a basis node to any point of its support."""
+        return float(np.max(self.mesh.seg_length))
 
     def loss(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Conductor-loss part ``int Z'(f) f_m . f_n dl``: shape (F, N, N) in ohm."""

@@ -69,7 +69,7 @@ class KernelRules:
         static_far: int = 4,
         dynamic: int = 3,
         near_outer: int = 10,
-        near_phi: int = 8,
+        near_phi: int = 10,
         near_lengths: float = 2.0,
         near_radii: float = 6.0,
     ) -> None:

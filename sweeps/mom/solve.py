@@ -56,7 +56,7 @@ class SolverSettings:
     static_far: int = 4
     dynamic: int = 3
     near_outer: int = 10
-    near_phi: int = 8
+    near_phi: int = 10
     field_order: int = 4
 
     def __post_init__(self) -> None:
@@ -165,6 +165,8 @@ class Solver:
         )
         self.fill = MatrixFill(self.mesh, self.settings.kernel, self.settings.kernel_rules())
         self.points = CurrentPoints(self.mesh, self.settings.field_order)
+        #: a lighter rule for pattern searches (2 points per half: phase error ~ (k L)^4 / 4320)
+        self.pattern_points = CurrentPoints(self.mesh, 2)
         self.f_max_hz = f_max_hz
 
     def matrices(self, f_hz: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
@@ -198,7 +200,6 @@ class Solver:
         if not np.all(np.isfinite(cur)):
             raise SolverError("non-finite currents: the impedance matrix is ill-conditioned")
         y = np.einsum("np,fnq->fpq", e, cur)
-        y = 0.5 * (y + y.swapaxes(-1, -2))  # exact reciprocity up to round-off
         z = np.linalg.inv(y)
         p_in = 0.5 * np.real(np.einsum("fpp->fp", y))  # 1 V peak: P = Re(V I*)/2
         # radiated power from the Hermitian part of the EFIE matrix; loss from the rest
