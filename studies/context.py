@@ -6,6 +6,7 @@ samplers and runner stay independent of the config schema's details.
 
 from __future__ import annotations
 
+import inspect
 import json
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -121,10 +122,13 @@ def point_evaluator(study_json: str) -> Callable[[dict[str, Any]], Record]:
 
     study = study_from_json(study_json)
     settings = solver_settings(study)
+    # the reader enters read_range_m; older solvers' evaluate() has no reader argument
+    with_reader = "reader" in inspect.signature(evaluate).parameters
 
     def run(params: dict[str, Any]) -> Record:
         design, band, reader = design_from(study, params)
-        ev = evaluate(design, band, settings, reader=reader)
+        kw = {"reader": reader} if with_reader else {}
+        ev = evaluate(design, band, settings, **kw)
         ports = ev.z.shape[-1]
         return Record(
             point_id="",
