@@ -374,8 +374,7 @@ def run_points(
         stats.interrupted = True
         logger.warning("interrupted: storing finished batches, cancelling the rest")
         for fut, batch in list(inflight.items()):
-            status = fut.status
-        if status == "finished":
+            if fut.status == "finished":
                 try:
                     handle(fut, batch)
                 except (FilamantError, OSError) as exc:  # pragma: no cover - best effort

@@ -38,9 +38,7 @@ points = 11
 target_mhz = 915
 
 [space]
-length_mm = {{min = 130, max = 170}}
-width_mm = {{min = 1.0, max = 4.0}}
-conductivity_s_per_m = {{min = 100, max = 100000, log = true}}
+{space}
 
 [sampler]
 method = "sobol"
@@ -52,13 +50,27 @@ workers = {workers}
 """
 
 
-def write_study(tmp: Path, *, name: str = "drawer", points: int = 16, workers: int = 1,
-                store: str | None = None, extra: str = "") -> Path:
-    """Write the cheap study config into ``tmp`` and return its path."""
+SPACE = """\
+length_mm = {min = 130, max = 170}
+width_mm = {min = 1.0, max = 4.0}
+conductivity_s_per_m = {min = 100, max = 100000, log = true}
+"""
+
+
+def write_study(tmp: Path, *, name: str = "drawer", points: int = 16, workers: int | None = 1,
+                store: str | None = None, space: str = SPACE, extra: str = "") -> Path:
+    """Write the cheap study config into ``tmp`` and return its path.
+
+    ``extra`` is appended after ``[cluster]``: with ``workers=None`` it can hold
+    ``scheduler = "tcp://..."``, or it can open further sections.
+    """
     path = tmp / f"{name}.toml"
     store_line = f'store = "{store}"' if store else ""
-    path.write_text(CHEAP_STUDY.format(name=name, points=points, workers=workers,
-                                       store=store_line) + textwrap.dedent(extra))
+    text = CHEAP_STUDY.format(name=name, points=points, store=store_line, space=space.strip(),
+                              workers=workers)
+    if workers is None:
+        text = text.replace("workers = None\n", "")
+    path.write_text(text + textwrap.dedent(extra))
     return path
 
 
