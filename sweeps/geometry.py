@@ -790,6 +790,9 @@ def _check_clearance(
     clearance = extent[:, None] + extent[None, :]
     suspect = dist < clearance
     np.fill_diagonal(suspect, False)
+    # segments sharing a node are neighbours by definition
+    share = (seg_nodes[:, None, :, None] == seg_nodes[None, :, None, :]).any(axis=(2, 3))
+    suspect &= ~share
     if not suspect.any():
         return
     n_nodes = len(nodes)

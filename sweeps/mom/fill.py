@@ -83,24 +83,30 @@ class MatrixFill:
         caps = (self._cap_static[0][None], self._cap_static[1][None]) if self._n_caps else None
         self.static_scalar = self._gather_scalar(static[None], caps)[0]
 
-        # Gram matrices of each wire: int f_m . f_n dl over its segments (for loss)
-        self._grams: list[tuple[int, NDArray[np.float64]]] = []
+        # Gram matrices of each wire, int f_m . f_n dl over its segments (for the loss), kept
+        # sparse: (rows, cols, values) of the entries of bases sharing a segment of that wire
+        self._grams: list[tuple[int, NDArray[np.int64], NDArray[np.int64], NDArray]] = []
         length = mesh.seg_length
         mass = np.array([[1.0 / 3.0, 1.0 / 6.0], [1.0 / 6.0, 1.0 / 3.0]])
+        halves = [(m, h) for m in range(n) for h in range(2) if sgn[m, h] != 0]
+        by_seg: dict[int, list[tuple[int, int]]] = {}
+        for m, h in halves:
+            by_seg.setdefault(int(mesh.half_seg[m, h]), []).append((m, h))
         for wi in np.unique(mesh.seg_wire):
-            gram = np.zeros((n, n))
-            for a in range(2):
-                for b in range(2):
-                    sa = mesh.half_seg[:, a]
-                    sb = mesh.half_seg[:, b]
-                    same = (sa[:, None] == sb[None, :]) & (mesh.seg_wire[sa][:, None] == wi)
-                    val = (
-                        sgn[:, a][:, None] * sgn[:, b][None, :]
-                        * mass[mesh.half_shape[:, a][:, None], mesh.half_shape[:, b][None, :]]
-                        * length[sa][:, None]
-                    )
-                    gram += np.where(same, val, 0.0)
-            self._grams.append((int(wi), gram))
+            acc: dict[tuple[int, int], float] = {}
+            for seg, members in by_seg.items():
+                if mesh.seg_wire[seg] != wi:
+                    continue
+                for m, a_ in members:
+                    for q, b_ in members:
+                        val = (sgn[m, a_] * sgn[q, b_] * length[seg]
+                               * mass[mesh.half_shape[m, a_], mesh.half_shape[q, b_]])
+                        acc[(m, q)] = acc.get((m, q), 0.0) + val
+            keys = list(acc)
+            rows = np.array([k[0] for k in keys], dtype=np.int64)
+            cols = np.array([k[1] for k in keys], dtype=np.int64)
+            vals = np.array([acc[k] for k in keys])
+            self._grams.append((int(wi), rows, cols, vals))
 
     # ------------------------------------------------------------------ gathers
     def _gather_vector(self, a: NDArray) -> NDArray:
@@ -200,16 +206,43 @@ class MatrixFill:
         """Largest distance in m from a basis node to any point of its support."""
         return float(np.max(self.mesh.seg_length))
 
+    def wire_impedances(self, f_hz: NDArray[np.float64]) -> list[NDArray[np.complex128]]:
+        """Internal impedance per unit length (ohm/m) of each lossy wire, in ``_grams`` order."""
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        out = []
+        for wi, *_ in self._grams:
+            wire = self.mesh.structure.wires[wi]
+            out.append(wire.section.internal_impedance(f, wire.conductivity_s_per_m))
+        return out
+
+    def add_loss(self, z: NDArray[np.complex128], f_hz: NDArray[np.float64]) -> None:
+        """Add the conductor-loss matrix ``int Z'(f) f_m . f_n dl`` to ``z`` (F, N, N) in place."""
+        for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f_hz),
+                                             strict=True):
+            if np.any(zs != 0):
+                z[:, rows, cols] += zs[:, None] * vals[None, :]
+
     def loss(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Conductor-loss part ``int Z'(f) f_m . f_n dl``: shape (F, N, N) in ohm."""
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         n = self.n_unknowns
         out = np.zeros((len(f), n, n), dtype=complex)
-        for wi, gram in self._grams:
-            wire = self.mesh.structure.wires[wi]
-            zs = wire.section.internal_impedance(f, wire.conductivity_s_per_m)
-            if np.any(zs != 0):
-                out += zs[:, None, None] * gram[None]
+        self.add_loss(out, f)
+        return out
+
+    def loss_power(self, currents: NDArray[np.complex128], f_hz: NDArray[np.float64]
+                   ) -> NDArray[np.float64]:
+        """Power dissipated in the conductors, ``1/2 Re(I^H Z_loss I)`` in W: (F, K).
+
+        ``currents`` has shape (F, N, K) (peak amplitudes).
+        """
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        out = np.zeros((len(f), currents.shape[-1]))
+        for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f),
+                                             strict=True):
+            quad = np.sum(currents[:, rows, :].conj() * (vals[None, :, None]
+                                                         * currents[:, cols, :]), axis=1)
+            out += 0.5 * zs.real[:, None] * quad.real
         return out
 
     def loads(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
@@ -222,6 +255,28 @@ class MatrixFill:
             out += load.impedance(f)[:, None, None] * np.outer(e, e)[None]
         return out
 
+    def add_loads(self, z: NDArray[np.complex128], f_hz: NDArray[np.float64]) -> None:
+        """Add the lumped loads to ``z`` (F, N, N) in place."""
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        for li, load in enumerate(self.mesh.structure.loads):
+            e = self.mesh.load_vectors[:, li]
+            nz = np.nonzero(e)[0]
+            z[:, nz[:, None], nz[None, :]] += (load.impedance(f)[:, None, None]
+                                               * np.outer(e[nz], e[nz])[None])
+
+    def load_power(self, currents: NDArray[np.complex128], f_hz: NDArray[np.float64]
+                   ) -> NDArray[np.float64]:
+        """Power dissipated in the lumped loads in W: (F, K)."""
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        out = np.zeros((len(f), currents.shape[-1]))
+        for li, load in enumerate(self.mesh.structure.loads):
+            i_load = np.einsum("n,fnk->fk", self.mesh.load_vectors[:, li], currents)
+            out += 0.5 * load.impedance(f).real[:, None] * np.abs(i_load) ** 2
+        return out
+
     def matrix(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Full impedance matrix (EFIE + conductor loss + loads): shape (F, N, N) in ohm."""
-        return self.efie(f_hz) + self.loss(f_hz) + self.loads(f_hz)
+        z = self.efie(f_hz)
+        self.add_loss(z, f_hz)
+        self.add_loads(z, f_hz)
+        return z

@@ -67,7 +67,7 @@ class KernelRules:
     def __init__(
         self,
         static_far: int = 4,
-        dynamic: int = 3,
+        dynamic: int = 2,
         near_outer: int = 10,
         near_phi: int = 10,
         near_lengths: float = 2.0,
@@ -281,7 +281,9 @@ class DynamicPoints:
         g = np.expm1(-1j * k[:, None, None] * self.r[None]) * self.inv4pir[None]
         g = g.reshape(len(k), s, q, s, q)
         tmp = g @ self.lam_w  # (F, S, Q, S, 2)
-        out = np.einsum("fpuqj,ui->fpiqj", tmp, self.lam_w, optimize=True)
+        # contract u: (F, S, Q, S*2) with lam_w (Q, 2) -> (F, S, 2, S*2)
+        out = np.matmul(self.lam_w.T, tmp.reshape(len(k), s, q, 2 * s))
+        out = out.reshape(len(k), s, 2, s, 2)
         out *= self.scale[None, :, None, :, None]
         return out.reshape(len(k), 2 * s, 2 * s)
 
