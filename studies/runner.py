@@ -130,6 +130,15 @@ def make_jobqueue_cluster(options: Mapping[str, Any]) -> tuple[Any, int]:
         raise ConfigError("cluster.jobqueue: needs the dask-jobqueue package "
                           "(pip install 'filamant[jobqueue]')") from None
     cls = getattr(dask_jobqueue, _JOBQUEUE_CLASSES[system])
+    known = _jobqueue_options(cls)
+    unknown = sorted(k for k in opts if k not in known)
+    if unknown:
+        import difflib
+
+        close = difflib.get_close_matches(unknown[0], sorted(known), n=1)
+        hint = f"; did you mean {close[0]}?" if close else ""
+        raise ConfigError(f"cluster.jobqueue.{unknown[0]}: not an option of dask-jobqueue's "
+                          f"{_JOBQUEUE_CLASSES[system]}{hint}")
     if "cores" in opts:
         opts.setdefault("processes", opts["cores"])
     opts.setdefault("scheduler_options", {"dashboard_address": ":0"})
@@ -139,6 +148,20 @@ def make_jobqueue_cluster(options: Mapping[str, Any]) -> tuple[Any, int]:
         raise ConfigError(f"cluster.jobqueue: {_JOBQUEUE_CLASSES[system]} rejected the options: "
                           f"{exc}") from None
     return cluster, int(jobs)
+
+
+def _jobqueue_options(cls: type) -> set[str]:
+    """Keyword options a dask-jobqueue cluster class accepts (its own, its job class's and the
+    base job class's)."""
+    import inspect
+
+    from dask_jobqueue.core import Job
+
+    names: set[str] = set()
+    for fn in (cls.__init__, getattr(cls, "job_cls", Job).__init__, Job.__init__):
+        names |= {p.name for p in inspect.signature(fn).parameters.values()
+                  if p.kind in (p.POSITIONAL_OR_KEYWORD, p.KEYWORD_ONLY)}
+    return names - {"self", "scheduler", "job_cls"}
 
 
 @contextmanager

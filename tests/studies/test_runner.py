@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import dask
 import pytest
-from studies_store_support import broken_task, fake_points, fake_task, poison_task, unique_name
 
 from studies.lease import Lease
 from studies.runner import (
@@ -17,6 +16,13 @@ from studies.runner import (
 )
 from studies.store import Store
 from sweeps.errors import ConfigError
+from tests.studies.studies_store_support import (
+    broken_task,
+    fake_points,
+    fake_task,
+    poison_task,
+    unique_name,
+)
 
 
 @pytest.fixture
@@ -95,9 +101,8 @@ def test_jobqueue_cluster_construction_only():
 def test_jobqueue_bad_options():
     with pytest.raises(ConfigError, match="cluster.jobqueue.system"):
         make_jobqueue_cluster({"system": "cron"})
-    with pytest.raises(ConfigError, match="SLURMCluster rejected"):
-        make_jobqueue_cluster({"system": "slurm", "cores": 1, "memory": "1GB",
-                               "no_such_option": 1})
+    with pytest.raises(ConfigError, match="cluster.jobqueue.acount: .*did you mean account"):
+        make_jobqueue_cluster({"system": "slurm", "cores": 1, "memory": "1GB", "acount": "x"})
 
 
 def test_scheduler_unreachable():

@@ -16,12 +16,12 @@ import numpy as np
 import pandas as pd
 import pytest
 import skrf
-from studies_store_support import SPACE, write_study
 
 from studies.api import load_context, run_study
 from studies.cli import main
 from studies.lease import Lease
 from studies.store import Store
+from tests.studies.studies_store_support import SPACE, write_study
 
 # gaps up to 400 mm on a 130-170 mm dipole: the widest do not fit, those points must fail
 GAP_SPACE = SPACE + "feed.gap_mm = {min = 0.5, max = 400, log = true}\n"

@@ -18,11 +18,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from studies_store_support import write_study
 
 from studies.api import load_context, run_study, table_of
 from studies.lease import lease_info
 from studies.store import Store
+from tests.studies.studies_store_support import write_study
 
 ROOT = Path(__file__).resolve().parents[2]
 pytestmark = pytest.mark.slow

@@ -15,11 +15,11 @@ import time
 import numpy as np
 import pytest
 from sqlalchemy import inspect, select, text, update
-from studies_store_support import fake_points, fake_record, postgres_url, unique_name
 
 from studies.lease import Lease, lease_info, pid_alive, process_start
 from studies.store import METRIC_COLUMNS, Store, lease_table
 from sweeps.errors import StoreError
+from tests.studies.studies_store_support import fake_points, fake_record, postgres_url, unique_name
 
 CONFIG = {"antenna": {"length_mm": 150, "width_mm": 2}, "sampler": {"points": 4}}
 SOLVER = {"kernel": "exact", "solver_version": "1"}
