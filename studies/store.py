@@ -347,7 +347,7 @@ class Store:
             problems += describe_changes(rec.config, config) or ["the metric settings changed"]
         if problems:
             raise StoreError(
-                f"{self.display_url}: study {name!r} was stored with a different plan or solver "
+                f"{self.display_url}: study {name!r} was stored with other settings "
                 f"({'; '.join(problems)}); its results do not belong to this config. Use --fresh "
                 "to delete them and start over, or give the study another name"
             )

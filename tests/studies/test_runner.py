@@ -3,9 +3,14 @@ end to end in ``test_runner_study.py``)."""
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
+
 import dask
 import pytest
 
+from studies.api import load_context
+from studies.context import study_from_json
 from studies.lease import Lease
 from studies.runner import (
     ClusterError,
@@ -22,6 +27,7 @@ from tests.studies.studies_store_support import (
     fake_task,
     poison_task,
     unique_name,
+    write_study,
 )
 
 
@@ -109,3 +115,61 @@ def test_scheduler_unreachable():
     with pytest.raises(ConfigError, match="cluster.scheduler: cannot reach"):
         with open_client(ClusterSettings(scheduler="tcp://127.0.0.1:9")):
             pass
+
+
+EXAMPLES = Path(__file__).resolve().parents[2] / "studies" / "examples"
+
+
+def test_workers_rebuild_the_study_exactly():
+    """Workers receive ``Study.canonical()`` as JSON; the study they rebuild has the same
+    canonical form and plan fingerprint (choices, switch keys and all)."""
+    ctx = load_context(EXAMPLES / "drawer_study.toml")
+    again = study_from_json(ctx.canonical_json)
+    assert again.canonical() == ctx.study.canonical()
+    assert again.plan_fingerprint() == ctx.plan_fingerprint
+    plan = ctx.plan()
+    assert len(plan) == 32 and len({p.point_id for p in plan}) == 32
+    assert {p.params["antenna.conductivity_s_per_m"] for p in plan} == {3e4, 30.0}
+    assert {p.params["switch.closed.r_ohm"] for p in plan} == {10.0, 50.0}
+
+
+def test_jobqueue_from_a_study_config(tmp_path):
+    cfg = write_study(tmp_path, workers=None, extra="""
+        [cluster.jobqueue]
+        system = "pbs"
+        queue = "rf"
+        cores = 2
+        memory = "4GB"
+        walltime = "00:30:00"
+        jobs = 2
+        options = { resource_spec = "select=1:ncpus=2" }
+        """)
+    settings = load_context(cfg).cluster
+    assert settings.jobqueue["system"] == "pbs" and settings.jobqueue["jobs"] == 2
+    cluster, jobs = make_jobqueue_cluster(settings.jobqueue)
+    try:
+        script = cluster.job_script()
+    finally:
+        cluster.close()
+    assert jobs == 2 and "#PBS -q rf" in script and "#PBS -l select=1:ncpus=2" in script
+    assert "#PBS -l walltime=00:30:00" in script and "--nthreads 1" in script
+
+
+@pytest.mark.slow
+def test_example_study_run_status_export(tmp_path, capsys):
+    """The shipped example study goes through run, status and both exports."""
+    import shutil
+
+    from studies.cli import main
+
+    cfg = tmp_path / "drawer_study.toml"
+    shutil.copy(EXAMPLES / "drawer_study.toml", cfg)
+    assert main(["run", str(cfg), "--no-progress"]) == 0
+    assert main(["status", str(cfg), "--json"]) == 0
+    capsys.readouterr()
+    assert main(["status", str(cfg), "--json"]) == 0
+    st = json.loads(capsys.readouterr().out)
+    assert st["done"] + st["failed"] == st["total"] == 32 and st["planned"] == 0
+    assert main(["export", str(cfg), "--table", str(tmp_path / "d.parquet"),
+                 "--touchstone", str(tmp_path / "ts")]) == 0
+    assert len(list((tmp_path / "ts").glob("*.s1p"))) == st["done"]
