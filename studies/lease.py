@@ -40,25 +40,21 @@ HEARTBEAT_S = 5.0
 STALE_AFTER_S = 60.0
 
 
+def _stat(pid: int) -> list[str]:
+    """Fields 3... of ``/proc/<pid>/stat`` (after the command name), or ``[]``."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
+            stat = fh.read()
+    except OSError:
+        return []
+    # the command name (field 2) may contain spaces and parentheses: split after the last ")"
+    return stat[stat.rfind(")") + 2:].split()
+
+
 def process_start(pid: int) -> str:
     """Start time of process ``pid`` in clock ticks since boot (Linux ``/proc``), or ``""``."""
-    try:
-        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
-            stat = fh.read()
-    except OSError:
-        return ""
-    # the command name (field 2) may contain spaces; fields after it are space separated
-    rest = stat[stat.rfind(")") + 2:].split()
-    return rest[19] if len(rest) > 19 else ""
-
-
-def _proc_state(pid: int) -> str:
-    try:
-        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
-            stat = fh.read()
-    except OSError:
-        return ""
-    return stat[stat.rfind(")") + 2:].split()[0]
+    fields = _stat(pid)
+    return fields[19] if len(fields) > 19 else ""
 
 
 def pid_alive(pid: int, proc_start: str = "") -> bool:
@@ -69,7 +65,7 @@ def pid_alive(pid: int, proc_start: str = "") -> bool:
         return False
     except PermissionError:
         pass
-    if _proc_state(pid) in ("Z", "X"):
+    if (_stat(pid) or [""])[0] in ("Z", "X"):  # a zombie or dead process
         return False
     return not (proc_start and process_start(pid) and process_start(pid) != proc_start)
 

@@ -15,21 +15,12 @@ import sys
 from pathlib import Path
 
 from studies.verbs.common import add_json_option, add_set_option, print_json
+from studies.verbs.evaluate import _port
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
 EXAMPLE = ("filamant import studies/examples/drawer_tag_study.toml measured/ "
            "--params measured/params.csv")
-
-
-def _port(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a port number >= 1 (got {text!r})") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a port number >= 1 (got {value})")
-    return value
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
