@@ -53,6 +53,7 @@ from sqlalchemy import (
     Table,
     Text,
     and_,
+    bindparam,
     create_engine,
     delete,
     event,
@@ -475,16 +476,24 @@ class Store:
 
     def _set_status(self, conn: Connection, study: str, records: Sequence[Record], status: str,
                     now: float) -> None:
-        for r in records:
-            n = conn.execute(
-                update(points_table)
-                .where(points_table.c.study == study, points_table.c.point_id == r.point_id,
-                       points_table.c.status == "planned")
-                .values(status=status, reason=r.reason or None, updated_at=now,
-                        attempts=points_table.c.attempts + 1)).rowcount
-            if n != 1:
-                raise StoreError(f"{self.display_url}: study {study!r}: point {r.point_id} is not "
-                                 "a planned point any more; refusing to store it twice")
+        if not records:
+            return
+        ids = [r.point_id for r in records]
+        planned = set(conn.execute(select(points_table.c.point_id).where(
+            points_table.c.study == study, points_table.c.point_id.in_(ids),
+            points_table.c.status == "planned")).scalars())
+        stray = [i for i in ids if i not in planned]
+        if stray or len(set(ids)) != len(ids):
+            raise StoreError(f"{self.display_url}: study {study!r}: point "
+                             f"{(stray or ids)[0]} is not a planned point (any more); refusing to "
+                             "store it twice")
+        conn.execute(
+            update(points_table)
+            .where(points_table.c.study == study, points_table.c.point_id == bindparam("pid"),
+                   points_table.c.status == "planned")
+            .values(status=status, reason=bindparam("why"), updated_at=now,
+                    attempts=points_table.c.attempts + 1),
+            [{"pid": r.point_id, "why": r.reason or None} for r in records])
 
     @staticmethod
     def _result_row(study: str, r: Record) -> dict[str, Any]:
@@ -581,6 +590,9 @@ def _sqlite_setup(engine: Engine) -> None:
         dbapi_conn.isolation_level = None  # let SQLAlchemy's BEGIN below delimit transactions
         cur = dbapi_conn.cursor()
         cur.execute("PRAGMA journal_mode=WAL")
+        # durable against any crash of the process (SIGKILL); a power cut may lose the last
+        # committed batches, never consistency (they are re-evaluated on resume)
+        cur.execute("PRAGMA synchronous=NORMAL")
         cur.execute("PRAGMA foreign_keys=ON")
         cur.execute("PRAGMA busy_timeout=30000")
         cur.close()
