@@ -201,6 +201,14 @@ def _flatten(d: Any, prefix: str = "") -> dict[str, Any]:
     return {prefix[:-1]: d}
 
 
+#: Config sections that never change a result (left out of the change messages).
+NEUTRAL_SECTIONS = ("study", "cluster", "surrogate")
+
+
+def _results_part(config: Mapping[str, Any]) -> dict[str, Any]:
+    return {k: v for k, v in config.items() if k not in NEUTRAL_SECTIONS}
+
+
 def describe_changes(old: Mapping[str, Any], new: Mapping[str, Any], limit: int = 6) -> list[str]:
     """Human list of differing dotted keys between two nested dicts (``"a.b: 1 -> 2"``)."""
     fo, fn = _flatten(old), _flatten(new)
@@ -338,14 +346,15 @@ class Store:
         rec = self.study(name)
         if rec is None:
             return None
+        solver_new = json.loads(json.dumps(dict(solver)))
+        changed = (rec.plan_fingerprint != plan_fingerprint or dict(rec.solver) != solver_new
+                   or (metrics_fingerprint is not None and rec.metrics_fingerprint is not None
+                       and metrics_fingerprint != rec.metrics_fingerprint))
         problems: list[str] = []
-        if rec.plan_fingerprint != plan_fingerprint:
-            problems += describe_changes(rec.config, config) or ["the plan fingerprint changed"]
-        if dict(rec.solver) != json.loads(json.dumps(dict(solver))):
-            problems += [f"solver.{c}" for c in describe_changes(rec.solver, solver)]
-        if (metrics_fingerprint is not None and rec.metrics_fingerprint is not None
-                and metrics_fingerprint != rec.metrics_fingerprint and not problems):
-            problems += describe_changes(rec.config, config) or ["the metric settings changed"]
+        if changed:
+            problems = describe_changes(_results_part(rec.config), _results_part(config))
+            problems += [f"solver.{c}" for c in describe_changes(rec.solver, solver_new)]
+            problems = problems or ["the plan fingerprint changed"]
         if problems:
             raise StoreError(
                 f"{self.display_url}: study {name!r} was stored with other settings "

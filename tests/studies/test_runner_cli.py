@@ -127,7 +127,20 @@ def test_changed_config_refused_store_untouched(ran, capsys):
     assert "antenna.thickness_mm: 0.4 -> 0.5" in err and "--fresh" in err
     code, _, err = _cli(capsys, "run", ran, "--set", "sampler.points=8")
     assert code == 2 and "sampler.points: 4 -> 8" in err
+    # the reader changes read_range_m: refused too, naming the key
+    code, _, err = _cli(capsys, "run", ran, "--set", "reader.tx_power_dbm=27")
+    assert code == 2 and "reader.tx_power_dbm" in err and "cluster" not in err
     assert same()
+
+
+def test_neutral_settings_accepted(ran, capsys):
+    """More workers or a new surrogate target change no result: the stored study is reused."""
+    code, out, err = _cli(capsys, "run", ran, "--json", "--set", "cluster.workers=2")
+    assert code == 0, err
+    s = json.loads(out)
+    assert (s["evaluated"], s["done"], s["created"]) == (0, 4, False)
+    code, out, _ = _cli(capsys, "status", ran, "--json", "--set", "cluster.workers=2")
+    assert json.loads(out)["config_matches"] is True
 
 
 @pytest.mark.parametrize("argv, words", [
