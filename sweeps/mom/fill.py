@@ -35,6 +35,14 @@ from sweeps.mom.kernel import (
 __all__ = ["MatrixFill"]
 
 
+def _weighted_take(a: NDArray, flat: NDArray, coef: NDArray) -> NDArray:
+    """``sum_ab coef[a, b] * a.flat[flat[a, b]]`` per frequency: (F, N, N) from (F, ...)."""
+    f = a.shape[0]
+    taken = a.reshape(f, -1)[:, flat]  # (F, 2, 2, N, N)
+    return (taken[:, 0, 0] * coef[0, 0] + taken[:, 0, 1] * coef[0, 1]
+            + taken[:, 1, 0] * coef[1, 0] + taken[:, 1, 1] * coef[1, 1])
+
+
 class MatrixFill:
     """Impedance-matrix builder for one mesh.
 
@@ -111,12 +119,12 @@ class MatrixFill:
     # ------------------------------------------------------------------ gathers
     def _gather_vector(self, a: NDArray) -> NDArray:
         """``sum_ab cv_ab * A[idx_a, idx_b]`` for a stack ``a`` of shape (F, 2S, 2S)."""
-        out = None
-        for i in range(2):
-            for j in range(2):
-                term = a[:, self._idx[:, i][:, None], self._idx[:, j][None, :]] * self._cv[i, j]
-                out = term if out is None else out + term
-        return out
+        if not hasattr(self, "_vflat"):
+            side = a.shape[-1]
+            i = self._idx
+            self._vflat = (i[:, None, :, None] * side + i[None, :, None, :]).transpose(2, 3, 0, 1)
+            self._vcoef = self._cv
+        return _weighted_take(a, self._vflat, self._vcoef)
 
     def _gather_scalar(
         self, a: NDArray, caps: tuple[NDArray, NDArray] | None = None
@@ -124,18 +132,20 @@ class MatrixFill:
         """``sum_ab cs_ab * Phi[elem_a, elem_b]`` over charge elements (segments, then caps)."""
         f = a.shape[0]
         s = a.shape[1] // 2
-        phi = a.reshape(f, s, 2, s, 2).sum(axis=(2, 4))
+        c = 0 if caps is None else caps[1].shape[-1]
+        side = s + c
+        phi = np.empty((f, side, side), dtype=a.dtype if caps is None else complex)
+        phi[:, :s, :s] = a.reshape(f, s, 2, s, 2).sum(axis=(2, 4))
         if caps is not None:
             cap_seg, cap_cap = caps
-            top = np.concatenate([phi, np.swapaxes(cap_seg, 1, 2)], axis=2)
-            bottom = np.concatenate([cap_seg, cap_cap], axis=2)
-            phi = np.concatenate([top, bottom], axis=1)
-        out = None
-        for i in range(2):
-            for j in range(2):
-                term = phi[:, self._seg[:, i][:, None], self._seg[:, j][None, :]] * self._cs[i, j]
-                out = term if out is None else out + term
-        return out
+            phi[:, s:, :s] = cap_seg
+            phi[:, :s, s:] = np.swapaxes(cap_seg, 1, 2)
+            phi[:, s:, s:] = cap_cap
+        if getattr(self, "_sside", None) != side:
+            e = self._seg
+            self._sflat = (e[:, None, :, None] * side + e[None, :, None, :]).transpose(2, 3, 0, 1)
+            self._sside = side
+        return _weighted_take(phi, self._sflat, self._cs)
 
     # ------------------------------------------------------------------ public
     @property

@@ -121,8 +121,33 @@ def _evaluate(
                            lag / (1j * omega * EPS0)[:, None]], axis=1)  # (F, 2n)
     n = fill.n_unknowns
     h = (coef @ stack).reshape(len(k), n, n)
-    h *= _phase(k, fill.basis_distance)
+    _apply_phase(h, k, fill.basis_distance)
     return h
+
+
+def _apply_phase(h: NDArray[np.complex128], k: NDArray[np.float64],
+                 d: NDArray[np.float64]) -> None:
+    """Multiply ``h[i]`` by ``e^{-j k_i d}`` in place (recurrence over uniform runs)."""
+    f = len(k)
+    i = 0
+    while i < f:
+        j = i + 1
+        if i + 2 < f:
+            dk = k[i + 1] - k[i]
+            while j < f and abs((k[j] - k[j - 1]) - dk) <= 1e-9 * abs(dk):
+                j += 1
+        if j - i < 4:
+            h[i:j] *= np.exp(-1j * k[i:j, None, None] * d[None])
+        else:
+            step = np.exp(-1j * (k[i + 1] - k[i]) * d)
+            ph = np.empty_like(step)
+            for m in range(i, j):
+                if (m - i) % 32 == 0:
+                    ph = np.exp(-1j * k[m] * d)
+                else:
+                    ph *= step
+                h[m] *= ph
+        i = j
 
 
 def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0) -> NDArray[np.complex128]:
