@@ -1,8 +1,8 @@
 """The Python API of studies: run one, ask its status, read its table.
 
 >>> from studies.api import run_study, study_table          # doctest: +SKIP
->>> summary = run_study("studies/examples/drawer_tag_study.toml")  # doctest: +SKIP
->>> df = study_table("studies/examples/drawer_tag_study.toml")     # doctest: +SKIP
+>>> summary = run_study("studies/examples/drawer_study.toml")  # doctest: +SKIP
+>>> df = study_table("studies/examples/drawer_study.toml")     # doctest: +SKIP
 
 ``run_study`` launches a study or resumes what is missing: the plan is drawn and stored once,
 when the study is created; later runs evaluate the points still ``planned``. A config whose

@@ -180,13 +180,17 @@ def _children_ignore_sigint() -> Iterator[None]:
 
 
 @contextmanager
-def open_client(settings: ClusterSettings) -> Iterator[Any]:
-    """A ``distributed.Client`` on the cluster ``settings`` describes; closed on exit."""
+def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
+                ) -> Iterator[Any]:
+    """A ``distributed.Client`` on the cluster ``settings`` describes; closed on exit.
+
+    ``connect_timeout_s`` bounds the wait for a running scheduler (``[cluster] scheduler``).
+    """
     from distributed import Client, LocalCluster
 
     if settings.scheduler:
         try:
-            client = Client(settings.scheduler, timeout="15s")
+            client = Client(settings.scheduler, timeout=f"{connect_timeout_s}s")
         except (OSError, TimeoutError) as exc:
             raise ConfigError(f"cluster.scheduler: cannot reach {settings.scheduler} "
                               f"({exc})") from None

@@ -302,7 +302,8 @@ class Store:
 
     def _create_schema(self) -> None:
         try:
-            _md.create_all(self.engine, checkfirst=True)
+            with self.write() as conn:  # one writer: never a read-to-write lock upgrade
+                _md.create_all(conn, checkfirst=True)
         except (IntegrityError, OperationalError, SQLAlchemyError) as exc:
             # another client may have created them at the same moment
             if not inspect(self.engine).has_table("filamant_lease"):

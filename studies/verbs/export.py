@@ -18,7 +18,7 @@ from sweeps.errors import ConfigError
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
-EXAMPLE = ("filamant export studies/examples/drawer_tag_study.toml --table drawer.csv "
+EXAMPLE = ("filamant export studies/examples/drawer_study.toml --table drawer.csv "
            "--touchstone drawer_s1p")
 
 

@@ -19,7 +19,7 @@ from studies.verbs.evaluate import _port
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
-EXAMPLE = ("filamant import studies/examples/drawer_tag_study.toml measured/ "
+EXAMPLE = ("filamant import studies/examples/drawer_study.toml measured/ "
            "--params measured/params.csv")
 
 

@@ -23,7 +23,7 @@ from studies.verbs.common import add_json_option, add_set_option, print_json
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
-EXAMPLE = "filamant run studies/examples/drawer_tag_study.toml --set sampler.points=64"
+EXAMPLE = "filamant run studies/examples/drawer_study.toml --set sampler.points=64"
 
 log = logging.getLogger(__name__)
 

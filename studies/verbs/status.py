@@ -15,7 +15,7 @@ from studies.verbs.common import add_json_option, add_set_option, print_json
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
-EXAMPLE = "filamant status studies/examples/drawer_tag_study.toml --json"
+EXAMPLE = "filamant status studies/examples/drawer_study.toml --json"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:

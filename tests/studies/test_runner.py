@@ -113,7 +113,7 @@ def test_jobqueue_bad_options():
 
 def test_scheduler_unreachable():
     with pytest.raises(ConfigError, match="cluster.scheduler: cannot reach"):
-        with open_client(ClusterSettings(scheduler="tcp://127.0.0.1:9")):
+        with open_client(ClusterSettings(scheduler="tcp://127.0.0.1:9"), connect_timeout_s=1):
             pass
 
 
