@@ -48,6 +48,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -171,7 +172,48 @@ def s11_from_z(zin: NDArray[np.complex128], z0_ohm: float) -> NDArray[np.complex
     return (zin - z0_ohm) / (zin + z0_ohm)
 
 
-def _zin_spline(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]):  # noqa: ANN202
+class _GridSpline:
+    """scipy's not-a-knot ``CubicSpline`` of band data, as the linear map it is.
+
+    The spline's piecewise coefficients are a linear function of the data, so the map from data
+    to coefficients is built once per frequency grid (as the spline of the identity matrix) and
+    each band array then costs a small matrix product. Same spline as
+    ``scipy.interpolate.CubicSpline(f_hz, y)`` up to rounding
+    (``tests/sweeps/test_metrics_speed.py``).
+    """
+
+    def __init__(self, x: NDArray[np.float64], y: NDArray, maps: NDArray[np.float64]) -> None:
+        self.x = x
+        self.y = y
+        self._maps = maps  # (4, F-1, F): coefficient k of interval i = maps[k, i] @ y
+
+    @property
+    def c(self) -> NDArray:
+        """Coefficients (4, F-1), highest power first, as ``CubicSpline.c``."""
+        return self._maps @ self.y
+
+    def coefficients(self, intervals: NDArray[np.int64]) -> NDArray:
+        """Coefficients (4, len(intervals)) of the given intervals only."""
+        return self._maps[:, intervals, :] @ self.y
+
+    def __call__(self, t: float) -> complex:
+        i = int(np.clip(np.searchsorted(self.x, t, side="right") - 1, 0, len(self.x) - 2))
+        c = self._maps[:, i, :] @ self.y
+        s = t - self.x[i]
+        return c[3] + c[2] * s + c[1] * (s * s) + c[0] * (s * s * s)
+
+
+@lru_cache(maxsize=16)
+def _spline_maps(grid: bytes) -> NDArray[np.float64]:
+    from scipy.interpolate import CubicSpline
+
+    x = np.frombuffer(grid, dtype=float)
+    maps = CubicSpline(x, np.eye(len(x))).c  # (4, F-1, F)
+    maps.setflags(write=False)
+    return maps
+
+
+def _zin_spline(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]) -> _GridSpline | None:
     """Cubic spline (not-a-knot, scipy) of a complex band array, or ``None`` below 4 samples.
 
     The spline is linear in the data, so its imaginary part is the spline of ``Im Zin``: one
@@ -179,9 +221,8 @@ def _zin_spline(f_hz: NDArray[np.float64], zin: NDArray[np.complex128]):  # noqa
     """
     if len(f_hz) < 4:
         return None
-    from scipy.interpolate import CubicSpline
-
-    return CubicSpline(f_hz, zin)
+    x = np.ascontiguousarray(f_hz, dtype=float)
+    return _GridSpline(x, zin, _spline_maps(x.tobytes()))
 
 
 def resonances_hz(
@@ -205,7 +246,10 @@ def resonances_hz(
 
     if spline is None:
         spline = _zin_spline(f_hz, zin)
-    coef = spline.c[:, idx, ...].imag.reshape(4, len(idx))  # the cubic of each bracket
+    if isinstance(spline, _GridSpline):
+        coef = spline.coefficients(idx).imag  # the cubic of each bracket
+    else:
+        coef = spline.c[:, idx, ...].imag.reshape(4, len(idx))
     roots = linear.copy()
     for k, (a, b, xa, xb) in enumerate(zip(f0, f1, x0, x1, strict=True)):
         if xa == 0.0:
@@ -348,7 +392,10 @@ def impedance_slope(
     def fit(degree: int) -> tuple[complex, complex]:
         deg = min(degree, m - 1)
         vander = np.vander(u, deg + 1, increasing=True)
-        coef, *_ = np.linalg.lstsq(vander, z[idx], rcond=None)
+        if m > deg + 1:  # least squares by the normal equations (u is scaled: well conditioned)
+            coef = np.linalg.solve(vander.T @ vander, vander.T @ z[idx])
+        else:
+            coef, *_ = np.linalg.lstsq(vander, z[idx], rcond=None)
         return complex(coef[0]), complex(coef[1] / h)
 
     z_at, slope = fit(3)

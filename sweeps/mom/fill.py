@@ -40,6 +40,7 @@ __all__ = ["MatrixFill"]
 _BYTES_PER_POINT = 40
 _BYTES_PER_ENTRY = 48
 _CHUNK_BYTES = 64e6
+_LOSS_BLOCK = 16
 
 
 class MatrixFill:
@@ -275,10 +276,16 @@ class MatrixFill:
 
     def add_loss(self, z: NDArray[np.complex128], f_hz: NDArray[np.float64]) -> None:
         """Add the conductor-loss matrix ``int Z'(f) f_m . f_n dl`` to ``z`` (F, N, N) in place."""
+        n = self.n_unknowns
+        flat_z = z.reshape(len(z), n * n)
         for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f_hz),
                                              strict=True):
             if np.any(zs != 0):
-                z[:, rows, cols] += zs[:, None] * vals[None, :]
+                flat = rows * n + cols
+                # frequency blocks keep the temporaries small (no fresh pages per call)
+                for i0 in range(0, len(z), _LOSS_BLOCK):
+                    sl = slice(i0, i0 + _LOSS_BLOCK)
+                    flat_z[sl, flat] += zs[sl, None] * vals[None, :]
 
     def loss(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Conductor-loss part ``int Z'(f) f_m . f_n dl``: shape (F, N, N) in ohm."""
@@ -298,9 +305,11 @@ class MatrixFill:
         out = np.zeros((len(f), currents.shape[-1]))
         for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f),
                                              strict=True):
-            quad = np.sum(currents[:, rows, :].conj() * (vals[None, :, None]
-                                                         * currents[:, cols, :]), axis=1)
-            out += 0.5 * zs.real[:, None] * quad.real
+            for i0 in range(0, len(f), 2 * _LOSS_BLOCK):  # small temporaries
+                c = currents[i0: i0 + 2 * _LOSS_BLOCK]
+                quad = np.einsum("fek,e,fek->fk", c[:, rows, :].conj(), vals, c[:, cols, :])
+                out[i0: i0 + 2 * _LOSS_BLOCK] += 0.5 * zs.real[i0: i0 + 2 * _LOSS_BLOCK, None] \
+                    * quad.real
         return out
 
     def loads(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:

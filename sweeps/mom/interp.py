@@ -172,18 +172,48 @@ def _nodes_needed(span_k: float, rho: float) -> int:
     return MAX_NODES + 1
 
 
-class _Interpolant:
-    """Phase-extracted node data of one band piece, ready to be evaluated at any ``k``."""
+#: Cost of the phase recurrence per frequency and matrix entry, in units of one interpolation
+#: node in the real matrix product (measured: two complex multiplications in numpy cost about as
+#: much as 17 nodes of the product), and of one exact node fill per frequency of the band.
+_PHASE_COST_NODES = 17.0
+_FILL_COST_NODES = 2.6
 
-    def __init__(self, fill: MatrixFill, nodes: NDArray[np.float64], z: NDArray) -> None:
+
+def _plan(fill: MatrixFill, span_k: float, n_freq: int) -> tuple[int, bool]:
+    """Nodes and whether to extract the phase, whichever is expected to be cheaper.
+
+    With the phase ``e^{-jk d_mn}`` removed, the smooth remainder needs nodes for a phase error
+    of two segment lengths; without it, for the largest distance in the structure (plus two
+    segment lengths). Small structures over moderate bands need only a few more nodes without
+    the phase, which is cheaper than the recurrence at every frequency.
+    """
+    extent = 2.0 * fill.basis_extent
+    n_phase = _nodes_needed(span_k, extent)
+    n_plain = _nodes_needed(span_k, float(np.max(fill.basis_distance)) + extent)
+    per = _FILL_COST_NODES / max(n_freq, 1)
+    cost_phase = n_phase * (1.0 + per) + _PHASE_COST_NODES
+    cost_plain = n_plain * (1.0 + per)
+    if n_plain <= MAX_NODES and cost_plain < cost_phase:
+        return n_plain, False
+    return n_phase, True
+
+
+class _Interpolant:
+    """Node data of one band piece (phase extracted or not), ready to be evaluated at any ``k``."""
+
+    def __init__(self, fill: MatrixFill, nodes: NDArray[np.float64], z: NDArray,
+                 phase: bool) -> None:
         self.fill = fill
         self.nodes = nodes
-        self.phase = _phase(fill)
+        self.phase = _phase(fill) if phase else None
         n = len(nodes)
-        # W(k_j) = k_j Z(k_j) e^{+jk_j d}, as real (re, im) pairs: the interpolation is then one
-        # real matrix product for all frequencies
-        stack = np.conj(self.phase(nodes))  # (n, N*N)
-        stack *= z.reshape(n, -1)
+        # W(k_j) = k_j Z(k_j) [e^{+jk_j d}], as real (re, im) pairs: the interpolation is then
+        # one real matrix product for all frequencies
+        if self.phase is not None:
+            stack = np.conj(self.phase(nodes))  # (n, N*N)
+            stack *= z.reshape(n, -1)
+        else:
+            stack = z.reshape(n, -1).copy()
         stack *= nodes[:, None]
         self.stack = stack.view(float)  # (n, 2 N*N)
 
@@ -193,7 +223,8 @@ class _Interpolant:
         n = self.fill.n_unknowns
         out = np.empty((len(k), n, n), dtype=complex)
         np.matmul(coef, self.stack, out=out.reshape(len(k), -1).view(float))
-        _apply_phase(out.reshape(len(k), -1), k, self.phase)
+        if self.phase is not None:
+            _apply_phase(out.reshape(len(k), -1), k, self.phase)
         return out
 
 
@@ -202,25 +233,29 @@ def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0) -> NDArray[
     k = 2.0 * np.pi * f * C_INV
     i_lo = int(np.argmin(k))
     lo, hi = float(k[i_lo]), float(np.max(k))
-    n_nodes = _nodes_needed(hi - lo, 2.0 * fill.basis_extent)
+    n_nodes, phase = _plan(fill, hi - lo, len(f))
     while n_nodes <= MAX_NODES:
         if len(f) < 2 * n_nodes + 2:
             return fill.efie_direct(f)
         nodes = chebyshev_nodes(lo, hi, n_nodes)
         # one batched exact fill: the nodes and the check frequency at the low band edge
         z_nodes = fill.efie_direct(np.append(nodes, lo) / (2.0 * np.pi * C_INV))
-        interp = _Interpolant(fill, nodes, z_nodes[:-1])
+        interp = _Interpolant(fill, nodes, z_nodes[:-1], phase)
         z_chk = z_nodes[-1]
-        z_int = interp(np.array([lo]))[0]
-        err = float(np.linalg.norm(z_int - z_chk) / np.linalg.norm(z_chk))
+        # interpolate the whole band; the check compares at the low edge, where the error of
+        # Chebyshev interpolation is largest, and that frequency then gets the exact matrix
+        out = interp(k)
+        err = float(np.linalg.norm(out[i_lo] - z_chk) / np.linalg.norm(z_chk))
         if err <= INTERP_TOL:
-            out = interp(k)
             out[k == lo] = z_chk
-            log.debug("interpolated %d frequencies from %d nodes (check error %.2g)",
-                      len(f), n_nodes, err)
+            log.debug("interpolated %d frequencies from %d nodes, phase %s (check error %.2g)",
+                      len(f), n_nodes, "extracted" if phase else "kept", err)
             return out
         log.debug("interpolation check failed with %d nodes (error %.2g)", n_nodes, err)
-        n_nodes += 2
+        if not phase:  # the cheaper plan failed: fall back to the phase-extracted one
+            n_nodes, phase = _nodes_needed(hi - lo, 2.0 * fill.basis_extent), True
+        else:
+            n_nodes += 2
     if depth >= 4 or len(f) < 8:
         return fill.efie_direct(f)
     order = np.argsort(f, kind="stable")
