@@ -468,19 +468,14 @@ def _point_segment_distance(
     return float(np.linalg.norm(a + t * d - p)), t
 
 
-def segment_distances(
-    a0: NDArray[np.float64], a1: NDArray[np.float64], b0: NDArray[np.float64],
-    b1: NDArray[np.float64]
-) -> NDArray[np.float64]:
-    """Minimum distances between all pairs of 3-D segments ``a`` (rows) and ``b`` (columns).
+def _closest_distance(a0: list, d1: list, b0: list, d2: list) -> NDArray[np.float64]:
+    """Classic closest-points-of-two-segments algorithm on broadcastable component arrays.
 
-    Vectorised form of the classic closest-points-of-two-segments algorithm (clamped parameters,
-    re-projection), shape ``(len(a0), len(b0))``.
+    ``a0, b0`` start points and ``d1, d2`` direction vectors (end minus start), each a list of
+    three arrays (x, y, z). Clamped parameters with re-projection; elementwise, so all-pairs and
+    pair-by-pair evaluations give identical numbers.
     """
-    # one (n, m) array per Cartesian component: no reductions over a short last axis
-    d1 = [(a1[:, i] - a0[:, i])[:, None] for i in range(3)]
-    d2 = [(b1[:, i] - b0[:, i])[None, :] for i in range(3)]
-    r = [a0[:, i][:, None] - b0[:, i][None, :] for i in range(3)]
+    r = [a0[i] - b0[i] for i in range(3)]
     a = d1[0] * d1[0] + d1[1] * d1[1] + d1[2] * d1[2]
     e = d2[0] * d2[0] + d2[1] * d2[1] + d2[2] * d2[2]
     f = d2[0] * r[0] + d2[1] * r[1] + d2[2] * r[2]
@@ -496,9 +491,62 @@ def segment_distances(
                      np.clip((b - c) / a, 0.0, 1.0), s))
     sq = 0.0
     for i in range(3):
-        gap = (a0[:, i][:, None] + s * d1[i]) - (b0[:, i][None, :] + t_c * d2[i])
+        gap = (a0[i] + s * d1[i]) - (b0[i] + t_c * d2[i])
         sq = sq + gap * gap
     return np.sqrt(sq)
+
+
+def segment_distances(
+    a0: NDArray[np.float64], a1: NDArray[np.float64], b0: NDArray[np.float64],
+    b1: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Minimum distances between all pairs of 3-D segments ``a`` (rows) and ``b`` (columns).
+
+    Vectorised form of the classic closest-points-of-two-segments algorithm (clamped parameters,
+    re-projection), shape ``(len(a0), len(b0))``.
+    """
+    # one (n, m) array per Cartesian component: no reductions over a short last axis
+    return _closest_distance([a0[:, i][:, None] for i in range(3)],
+                             [(a1[:, i] - a0[:, i])[:, None] for i in range(3)],
+                             [b0[:, i][None, :] for i in range(3)],
+                             [(b1[:, i] - b0[:, i])[None, :] for i in range(3)])
+
+
+def paired_segment_distances(
+    a0: NDArray[np.float64], a1: NDArray[np.float64], b0: NDArray[np.float64],
+    b1: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Minimum distance between segment ``a[i]`` and segment ``b[i]`` for every ``i``: (n,).
+
+    The same numbers as the matching entries of :func:`segment_distances`.
+    """
+    return _closest_distance([a0[:, i] for i in range(3)], [a1[:, i] - a0[:, i] for i in range(3)],
+                             [b0[:, i] for i in range(3)], [b1[:, i] - b0[:, i] for i in range(3)])
+
+
+def segments_within(
+    starts: NDArray[np.float64], ends: NDArray[np.float64], limit: NDArray[np.float64] | float
+) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.float64]]:
+    """Ordered pairs ``(i, j)`` of segments closer than ``limit`` (scalar or (S, S)) and distances.
+
+    Only pairs whose midpoints are close enough to possibly qualify (``|m_i - m_j| - (L_i + L_j)
+    / 2`` is a lower bound of their distance) get the exact :func:`paired_segment_distances`, so
+    a long structure costs far less than all ``S^2`` distances; the result equals filtering
+    :func:`segment_distances` by ``< limit``.
+    """
+    mid = 0.5 * (starts + ends)
+    half = 0.5 * np.linalg.norm(ends - starts, axis=1)
+    gap = 0.0
+    for i in range(3):
+        di = mid[:, i][:, None] - mid[:, i][None, :]
+        gap = gap + di * di
+    bound = np.sqrt(gap) - (half[:, None] + half[None, :])
+    scale = float(np.max(np.abs(mid))) + float(np.max(half)) + 1e-300
+    rows, cols = np.nonzero(bound < limit + 1e-9 * scale)  # margin against rounding
+    dist = paired_segment_distances(starts[rows], ends[rows], starts[cols], ends[cols])
+    lim = limit if np.ndim(limit) == 0 else np.asarray(limit)[rows, cols]
+    keep = dist < lim
+    return rows[keep], cols[keep], dist[keep]
 
 
 @dataclass
@@ -688,7 +736,7 @@ class Structure:
         key = np.sort(key[:, 0] * len(node_arr) + key[:, 1])
         if np.any(key[1:] == key[:-1]):
             raise GeometryError("two wires overlap: the same segment appears twice")
-        seg_dist = _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
+        _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
 
         # --- basis functions
         basis = _bases(seg_nodes, seg_len, seg_radius, len(node_arr), rules.end_caps)
@@ -717,7 +765,6 @@ class Structure:
             port_nodes=[],
             load_nodes=[],
         )
-        mesh.__dict__["seg_distance"] = seg_dist
 
         def gap_node(kind: str, i: int, pos: NDArray[np.float64]) -> int:
             dist = np.linalg.norm(node_arr - pos, axis=1)
@@ -763,27 +810,27 @@ def _check_clearance(
     seg_wire: NDArray[np.int64],
     seg_len: NDArray[np.float64],
     seg_radius: NDArray[np.float64],
-) -> NDArray[np.float64]:
+) -> None:
     """Refuse segments that touch or cross unless they are neighbours along the conductor.
 
     Two segments whose shortest path along the conductors (through shared nodes) is shorter than
     a few conductor sizes are neighbours; any other pair must keep their surfaces apart.
-    Returns the segment distances (S, S) in m.
     """
     s = len(seg_nodes)
     extent = np.array([w.section.half_extent_m for w in structure.wires])[seg_wire]
     starts = nodes[seg_nodes[:, 0]]
     ends = nodes[seg_nodes[:, 1]]
-    dist = segment_distances(starts, ends, starts, ends)
     clearance = extent[:, None] + extent[None, :]
-    rows, cols = np.nonzero(np.triu(dist < clearance, 1))
+    rows, cols, close = segments_within(starts, ends, clearance)
+    upper = rows < cols
+    rows, cols, close = rows[upper], cols[upper], close[upper]
     # segments sharing a node are neighbours by definition
     a, b = seg_nodes[rows], seg_nodes[cols]
     share = ((a[:, 0] == b[:, 0]) | (a[:, 0] == b[:, 1]) | (a[:, 1] == b[:, 0])
              | (a[:, 1] == b[:, 1]))
-    rows, cols = rows[~share], cols[~share]
+    rows, cols, close = rows[~share], cols[~share], close[~share]
     if not len(rows):
-        return dist
+        return
     from scipy.sparse import coo_matrix
     from scipy.sparse.csgraph import shortest_path
 
@@ -796,7 +843,7 @@ def _check_clearance(
     involved = np.unique(np.r_[seg_nodes[rows].ravel(), seg_nodes[cols].ravel()])
     sp = shortest_path(graph, directed=False, indices=involved)
     pos = {int(nd): i for i, nd in enumerate(involved)}
-    for r, c in zip(rows, cols, strict=True):
+    for r, c, dist_rc in zip(rows, cols, close, strict=True):
         along = min(
             sp[pos[int(a)], int(b)] for a in seg_nodes[r] for b in seg_nodes[c]
         )
@@ -807,11 +854,10 @@ def _check_clearance(
             raise GeometryError(
                 f"wires {wr.label} and {wc.label} overlap or touch near "
                 f"({', '.join(f'{x * 1e3:.4g}' for x in near)}) mm: their surfaces are "
-                f"{dist[r, c] * 1e3:.3g} mm apart between axes, less than the conductor size "
+                f"{dist_rc * 1e3:.3g} mm apart between axes, less than the conductor size "
                 f"{clearance[r, c] * 1e3:.3g} mm"
             )
     del s
-    return dist
 
 
 def _bases(

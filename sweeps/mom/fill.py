@@ -72,7 +72,7 @@ class MatrixFill:
         self.kernel = kernel
         self.rules = rules or KernelRules()
         starts, ends, radius = mesh.seg_start, mesh.seg_end, mesh.seg_radius
-        near = near_pairs(starts, ends, radius, self.rules, mesh.seg_distance)
+        near = near_pairs(starts, ends, radius, self.rules)
         self.pairs = PairTable(starts, ends, radius, near)
         static = static_pair_integrals(self.pairs, starts, ends, radius, kernel, self.rules)
         self._dyn = DynamicPoints(starts, ends, radius, kernel, self.rules, self.pairs)

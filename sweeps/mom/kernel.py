@@ -137,16 +137,22 @@ def near_pairs(
 ) -> NDArray[np.bool_]:
     """Boolean ``(S, S)`` matrix of the segment pairs that need the near-field treatment.
 
-    ``dist`` are the segment distances (:attr:`sweeps.geometry.Mesh.seg_distance`) if known.
+    ``dist`` are the segment distances (:attr:`sweeps.geometry.Mesh.seg_distance`) if known;
+    otherwise only the pairs that can be near get their distance
+    (:func:`sweeps.geometry.segments_within`).
     """
-    if dist is None:
-        from sweeps.geometry import segment_distances
-
-        dist = segment_distances(starts, ends, starts, ends)
     length = np.linalg.norm(ends - starts, axis=1)
     lmax = np.maximum(length[:, None], length[None, :])
     amax = np.maximum(radius[:, None], radius[None, :])
-    return dist < np.maximum(rules.near_lengths * lmax, rules.near_radii * amax)
+    limit = np.maximum(rules.near_lengths * lmax, rules.near_radii * amax)
+    if dist is not None:
+        return dist < limit
+    from sweeps.geometry import segments_within
+
+    rows, cols, _ = segments_within(starts, ends, limit)
+    near = np.zeros((len(starts), len(starts)), dtype=bool)
+    near[rows, cols] = True
+    return near
 
 
 def _pair_radius2(radius: NDArray[np.float64]) -> NDArray[np.float64]:
