@@ -179,7 +179,7 @@ class _GridSpline:
     to coefficients is built once per frequency grid (as the spline of the identity matrix) and
     each band array then costs a small matrix product. Same spline as
     ``scipy.interpolate.CubicSpline(f_hz, y)`` up to rounding
-    (``tests/sweeps/test_metrics_speed.py``).
+    (``tests/sweeps/test_spline_map.py``).
     """
 
     def __init__(self, x: NDArray[np.float64], y: NDArray, maps: NDArray[np.float64]) -> None:

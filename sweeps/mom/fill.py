@@ -109,14 +109,15 @@ class MatrixFill:
         k = self.pairs.size
         index = self.pairs.index
         # axes [a, b, m, n]: half a of basis m against half b of basis n
-        seg, shape = mesh.half_seg.T, mesh.half_shape.T  # (2, N)
+        itype = index.dtype  # int32 unless the structure is huge: smaller, faster maps
+        seg, shape = mesh.half_seg.T.astype(itype), mesh.half_shape.T.astype(itype)  # (2, N)
         p, q = seg[:, None, :, None], seg[None, :, None, :]
         i, j = shape[:, None, :, None], shape[None, :, None, :]
         v_cols = 4 * index[p, q] + np.where(p <= q, 2 * i + j, 2 * j + i)
         tvec = mesh.seg_dir[seg] * mesh.half_sign.T[:, :, None]  # (2, N, 3) current directions
         v_vals = (tvec.reshape(-1, 3) @ tvec.reshape(-1, 3).T).reshape(2, n, 2, n)
         v_vals = v_vals.transpose(0, 2, 1, 3)
-        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).T  # (2, N)
+        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).T.astype(itype)
         on_seg = np.minimum(elem, s - 1)
         pair = index[on_seg[:, None, :, None], on_seg[None, :, None, :]]
         cap = elem - s  # >= 0 for an end cap
@@ -130,7 +131,7 @@ class MatrixFill:
         s_vals = div[:, None, :, None] * div[None, :, None, :]
         # four entries per row m N + n, one per pair of halves (a, b) (zeros kept: an end-cap
         # half carries no axial current); duplicate columns in a row add up in the product
-        indptr = np.arange(0, 4 * n * n + 1, 4)
+        indptr = np.arange(0, 4 * n * n + 1, 4, dtype=np.int32 if 4 * n * n < 2**31 else np.int64)
 
         def rows(x: NDArray) -> NDArray:
             return x.transpose(2, 3, 0, 1).ravel()

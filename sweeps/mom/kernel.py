@@ -243,7 +243,7 @@ class PairTable:
         self.p = rows[first]
         self.q = cols[first]
         self.near = near[self.p, self.q]
-        self.index = np.empty((s, s), dtype=np.int64)
+        self.index = np.empty((s, s), dtype=np.int32 if len(first) < 2**29 else np.int64)
         self.index[rows, cols] = group
         self.index[cols, rows] = group
 
