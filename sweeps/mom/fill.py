@@ -108,25 +108,29 @@ class MatrixFill:
         c = self._n_caps
         k = self.pairs.size
         index = self.pairs.index
-        # axes [a, b, m, n]: half a of basis m against half b of basis n
         itype = index.dtype  # int32 unless the structure is huge: smaller, faster maps
-        seg, shape = mesh.half_seg.T.astype(itype), mesh.half_shape.T.astype(itype)  # (2, N)
-        p, q = seg[:, None, :, None], seg[None, :, None, :]
-        i, j = shape[:, None, :, None], shape[None, :, None, :]
-        v_cols = 4 * index[p, q] + np.where(p <= q, 2 * i + j, 2 * j + i)
-        tvec = mesh.seg_dir[seg] * mesh.half_sign.T[:, :, None]  # (2, N, 3) current directions
+        # column of every shape pair (p, i), (q, j) in the per-group integrals (transposed for
+        # p > q), and of every pair of charge elements (segments, then end caps)
+        upper = np.triu(np.ones((s, s), dtype=bool))[:, None, :, None]
+        ii = np.arange(2, dtype=itype)[None, :, None, None]
+        jj = np.arange(2, dtype=itype)[None, None, None, :]
+        shape_cols = ((4 * index)[:, None, :, None]
+                      + np.where(upper, 2 * ii + jj, 2 * jj + ii)).reshape(2 * s, 2 * s)
+        elem_cols = np.empty((s + c, s + c), dtype=itype)
+        elem_cols[:s, :s] = index
+        if c:
+            cap_seg = k + np.arange(c, dtype=itype)[:, None] * s + np.arange(s, dtype=itype)
+            elem_cols[s:, :s] = cap_seg
+            elem_cols[:s, s:] = cap_seg.T
+            elem_cols[s:, s:] = (k + c * s + np.arange(c * c, dtype=itype)).reshape(c, c)
+        # axes [a, b, m, n]: half a of basis m against half b of basis n
+        half = (2 * mesh.half_seg + mesh.half_shape).T.astype(itype)  # (2, N) shape index
+        v_cols = shape_cols[half[:, None, :, None], half[None, :, None, :]]
+        tvec = mesh.seg_dir[mesh.half_seg.T] * mesh.half_sign.T[:, :, None]  # (2, N, 3)
         v_vals = (tvec.reshape(-1, 3) @ tvec.reshape(-1, 3).T).reshape(2, n, 2, n)
         v_vals = v_vals.transpose(0, 2, 1, 3)
         elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).T.astype(itype)
-        on_seg = np.minimum(elem, s - 1)
-        pair = index[on_seg[:, None, :, None], on_seg[None, :, None, :]]
-        cap = elem - s  # >= 0 for an end cap
-        ea, eb = elem[:, None, :, None], elem[None, :, None, :]
-        ca, cb = cap[:, None, :, None], cap[None, :, None, :]
-        cap_seg = k + np.where(ca >= 0, ca * s + eb, cb * s + ea)
-        cap_cap = k + c * s + ca * c + cb
-        s_cols = np.where((ca < 0) & (cb < 0), pair,
-                          np.where((ca >= 0) & (cb >= 0), cap_cap, cap_seg))
+        s_cols = elem_cols[elem[:, None, :, None], elem[None, :, None, :]]
         div = mesh.half_div.T
         s_vals = div[:, None, :, None] * div[None, :, None, :]
         # four entries per row m N + n, one per pair of halves (a, b) (zeros kept: an end-cap
@@ -344,7 +348,23 @@ class MatrixFill:
 
     def matrix(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Full impedance matrix (EFIE + conductor loss + loads): shape (F, N, N) in ohm."""
-        z = self.efie(f_hz)
-        self.add_loss(z, f_hz)
-        self.add_loads(z, f_hz)
+        from sweeps.mom.interp import interpolated_efie
+
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        if len(f) >= 16:  # the interpolation adds the loss itself (in its matrix product)
+            z = interpolated_efie(self, f, loss=True)
+        else:
+            z = self.efie_direct(f)
+            self.add_loss(z, f)
+        self.add_loads(z, f)
         return z
+
+    def gram_dense(self) -> list[NDArray[np.float64]]:
+        """The Gram matrices of the wires as dense (N, N) arrays, in ``_grams`` order."""
+        n = self.n_unknowns
+        out = []
+        for _, rows, cols, vals in self._grams:
+            g = np.zeros((n, n))
+            g[rows, cols] = vals
+            out.append(g)
+        return out

@@ -202,46 +202,63 @@ class _Interpolant:
     """Node data of one band piece (phase extracted or not), ready to be evaluated at any ``k``."""
 
     def __init__(self, fill: MatrixFill, nodes: NDArray[np.float64], z: NDArray,
-                 phase: bool) -> None:
+                 phase: bool, loss: bool = False) -> None:
         self.fill = fill
         self.nodes = nodes
         self.phase = _phase(fill) if phase else None
         n = len(nodes)
+        # without the phase the conductor loss sum_w Z'_w(k) G_w rides along in the product:
+        # two rows per lossy wire, G_w and j G_w, with coefficients Re and Im of Z'_w(k)
+        grams = fill.gram_dense() if loss and not phase else []
         # W(k_j) = k_j Z(k_j) [e^{+jk_j d}], as real (re, im) pairs: the interpolation is then
         # one real matrix product for all frequencies
+        stack = np.empty((n + 2 * len(grams), z[0].size), dtype=complex)
         if self.phase is not None:
-            stack = np.conj(self.phase(nodes))  # (n, N*N)
-            stack *= z.reshape(n, -1)
+            np.multiply(np.conj(self.phase(nodes)), z.reshape(n, -1), out=stack[:n])
         else:
-            stack = z.reshape(n, -1).copy()
-        stack *= nodes[:, None]
-        self.stack = stack.view(float)  # (n, 2 N*N)
+            stack[:n] = z.reshape(n, -1)
+        stack[:n] *= nodes[:, None]
+        for w, g in enumerate(grams):
+            stack[n + 2 * w] = g.ravel()
+            stack[n + 2 * w + 1] = 1j * g.ravel()
+        self.loss_rows = bool(grams)
+        self.loss_after = loss and not self.loss_rows
+        self.stack = stack.view(float)  # (rows, 2 N*N)
 
     def __call__(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
-        """Interpolated EFIE matrices at wavenumbers ``k``: (F, N, N)."""
+        """Interpolated EFIE (plus loss, if asked) matrices at wavenumbers ``k``: (F, N, N)."""
         coef = barycentric_weights(self.nodes, k) / k[:, None]  # (F, n)
+        if self.loss_rows:
+            zs = self.fill.wire_impedances(k / (2.0 * np.pi * C_INV))
+            coef = np.concatenate([coef] + [np.stack([z.real, z.imag], axis=1) for z in zs],
+                                  axis=1)
         n = self.fill.n_unknowns
         out = np.empty((len(k), n, n), dtype=complex)
         np.matmul(coef, self.stack, out=out.reshape(len(k), -1).view(float))
         if self.phase is not None:
             _apply_phase(out.reshape(len(k), -1), k, self.phase)
+        if self.loss_after:
+            self.fill.add_loss(out, k / (2.0 * np.pi * C_INV))
         return out
 
 
-def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0) -> NDArray[np.complex128]:
-    """Interpolated EFIE matrices at ``f`` (any order) with the check and fallbacks."""
+def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0,
+           loss: bool = False) -> NDArray[np.complex128]:
+    """Interpolated EFIE (plus loss) matrices at ``f`` (any order), checked, with fallbacks."""
     k = 2.0 * np.pi * f * C_INV
     i_lo = int(np.argmin(k))
     lo, hi = float(k[i_lo]), float(np.max(k))
     n_nodes, phase = _plan(fill, hi - lo, len(f))
     while n_nodes <= MAX_NODES:
         if len(f) < 2 * n_nodes + 2:
-            return fill.efie_direct(f)
+            return _direct(fill, f, loss)
         nodes = chebyshev_nodes(lo, hi, n_nodes)
         # one batched exact fill: the nodes and the check frequency at the low band edge
         z_nodes = fill.efie_direct(np.append(nodes, lo) / (2.0 * np.pi * C_INV))
-        interp = _Interpolant(fill, nodes, z_nodes[:-1], phase)
+        interp = _Interpolant(fill, nodes, z_nodes[:-1], phase, loss)
         z_chk = z_nodes[-1]
+        if loss:
+            z_chk = z_chk + fill.loss(np.array([lo / (2.0 * np.pi * C_INV)]))[0]
         # interpolate the whole band; the check compares at the low edge, where the error of
         # Chebyshev interpolation is largest, and that frequency then gets the exact matrix
         out = interp(k)
@@ -257,19 +274,28 @@ def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0) -> NDArray[
         else:
             n_nodes += 2
     if depth >= 4 or len(f) < 8:
-        return fill.efie_direct(f)
+        return _direct(fill, f, loss)
     order = np.argsort(f, kind="stable")
     mid = len(f) // 2
     out = np.empty((len(f), fill.n_unknowns, fill.n_unknowns), dtype=complex)
-    out[order[:mid]] = _piece(fill, f[order[:mid]], depth + 1)
-    out[order[mid:]] = _piece(fill, f[order[mid:]], depth + 1)
+    out[order[:mid]] = _piece(fill, f[order[:mid]], depth + 1, loss)
+    out[order[mid:]] = _piece(fill, f[order[mid:]], depth + 1, loss)
     return out
 
 
-def interpolated_efie(fill: MatrixFill, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+def _direct(fill: MatrixFill, f: NDArray[np.float64], loss: bool) -> NDArray[np.complex128]:
+    z = fill.efie_direct(f)
+    if loss:
+        fill.add_loss(z, f)
+    return z
+
+
+def interpolated_efie(fill: MatrixFill, f_hz: NDArray[np.float64], *,
+                      loss: bool = False) -> NDArray[np.complex128]:
     """EFIE matrices at frequencies ``f_hz`` by checked interpolation, (F, N, N).
 
     Frequencies need not be sorted or uniform (a band plus its target frequency is typical);
-    uniformly spaced runs are cheapest (phase recurrence).
+    uniformly spaced runs are cheapest (phase recurrence). With ``loss`` the conductor-loss
+    matrix (:meth:`MatrixFill.add_loss`) is included, exactly (it is not interpolated).
     """
-    return _piece(fill, np.atleast_1d(np.asarray(f_hz, dtype=float)))
+    return _piece(fill, np.atleast_1d(np.asarray(f_hz, dtype=float)), loss=loss)
