@@ -46,6 +46,12 @@ __all__ = [
 SectionKind = Literal["round", "rect"]
 
 
+def rownorm(x: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Euclidean norm over the last axis; the numbers of ``np.linalg.norm(x, axis=-1)`` for real
+    ``x``, without its Python-level argument handling (it is called on small arrays a lot)."""
+    return np.sqrt(np.add.reduce(x * x, axis=-1))
+
+
 @dataclass(frozen=True)
 class CrossSection:
     """Cross-section of a conductor: a round wire or a flat printed trace.
@@ -166,7 +172,7 @@ class Wire:
     @property
     def length_m(self) -> float:
         """Total length along the polyline in m."""
-        return float(np.sum(np.linalg.norm(np.diff(self.points, axis=0), axis=1)))
+        return float(np.sum(rownorm(np.diff(self.points, axis=0))))
 
 
 @dataclass(frozen=True)
@@ -334,13 +340,13 @@ class Mesh:
     @cached_property
     def seg_length(self) -> NDArray[np.float64]:
         """Length of each segment in m, (S,)."""
-        return np.linalg.norm(self.seg_end - self.seg_start, axis=1)
+        return rownorm(self.seg_end - self.seg_start)
 
     @cached_property
     def seg_dir(self) -> NDArray[np.float64]:
         """Unit direction of each segment, (S, 3)."""
         d = self.seg_end - self.seg_start
-        return d / np.linalg.norm(d, axis=1)[:, None]
+        return d / rownorm(d)[:, None]
 
     @cached_property
     def seg_distance(self) -> NDArray[np.float64]:
@@ -535,7 +541,7 @@ def segments_within(
     :func:`segment_distances` by ``< limit``.
     """
     mid = 0.5 * (starts + ends)
-    half = 0.5 * np.linalg.norm(ends - starts, axis=1)
+    half = 0.5 * rownorm(ends - starts)
     gap = 0.0
     for i in range(3):
         di = mid[:, i][:, None] - mid[:, i][None, :]
@@ -629,7 +635,7 @@ class Structure:
                     f"thin-wire model at {f_max_hz / 1e6:.6g} MHz (k*a = {k * a:.3g} > "
                     f"{rules.max_ka}); use a narrower trace or a lower band"
                 )
-            seglen = np.linalg.norm(np.diff(w.points, axis=0), axis=1)
+            seglen = rownorm(np.diff(w.points, axis=0))
             if np.any(seglen <= tol):
                 i = int(np.argmin(seglen))
                 raise GeometryError(
@@ -716,7 +722,7 @@ class Structure:
         seg_radius = wire_radius[seg_wire]
         starts = node_arr[seg_nodes[:, 0]]
         ends = node_arr[seg_nodes[:, 1]]
-        seg_len = np.linalg.norm(ends - starts, axis=1)
+        seg_len = rownorm(ends - starts)
 
         # --- kernel limit on segment length
         ratio = seg_len / seg_radius
@@ -736,7 +742,8 @@ class Structure:
         key = np.sort(key[:, 0] * len(node_arr) + key[:, 1])
         if np.any(key[1:] == key[:-1]):
             raise GeometryError("two wires overlap: the same segment appears twice")
-        _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
+        if len(pieces) > 1:  # segments of one straight piece never touch but as neighbours
+            _check_clearance(self, node_arr, seg_nodes, seg_wire, seg_len, seg_radius)
 
         # --- basis functions
         basis = _bases(seg_nodes, seg_len, seg_radius, len(node_arr), rules.end_caps)
@@ -767,7 +774,7 @@ class Structure:
         )
 
         def gap_node(kind: str, i: int, pos: NDArray[np.float64]) -> int:
-            dist = np.linalg.norm(node_arr - pos, axis=1)
+            dist = rownorm(node_arr - pos)
             node = int(np.argmin(dist))
             deg = int(node_degree[node])
             if deg != 2:

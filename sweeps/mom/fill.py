@@ -22,14 +22,13 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from sweeps.geometry import Mesh
+from sweeps.geometry import Mesh, rownorm
 from sweeps.materials import EPS0, MU0
 from sweeps.mom.kernel import (
     DynamicPoints,
     KernelRules,
     PairTable,
     cap_static_integrals,
-    near_pairs,
     static_pair_integrals,
 )
 
@@ -72,8 +71,7 @@ class MatrixFill:
         self.kernel = kernel
         self.rules = rules or KernelRules()
         starts, ends, radius = mesh.seg_start, mesh.seg_end, mesh.seg_radius
-        near = near_pairs(starts, ends, radius, self.rules)
-        self.pairs = PairTable(starts, ends, radius, near)
+        self.pairs = PairTable(starts, ends, radius, rules=self.rules)
         static = static_pair_integrals(self.pairs, starts, ends, radius, kernel, self.rules)
         self._dyn = DynamicPoints(starts, ends, radius, kernel, self.rules, self.pairs)
         self._n_caps = len(mesh.cap_nodes)
@@ -262,7 +260,7 @@ class MatrixFill:
         """Distance between the nodes of every pair of bases in m, (N, N): the phase centres."""
         if not hasattr(self, "_bdist"):
             pos = self.mesh.nodes[self.mesh.basis_node]
-            self._bdist = np.linalg.norm(pos[:, None, :] - pos[None, :, :], axis=-1)
+            self._bdist = rownorm(pos[:, None, :] - pos[None, :, :])
         return self._bdist
 
     @property

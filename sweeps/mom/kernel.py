@@ -41,6 +41,7 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import NDArray
 
+from sweeps.geometry import rownorm
 from sweeps.mom.quadrature import gauss01, graded_gauss01, start_graded_gauss01
 
 __all__ = ["KernelRules", "PairTable", "static_integrals", "static_pair_integrals",
@@ -141,7 +142,7 @@ def near_pairs(
     otherwise only the pairs that can be near get their distance
     (:func:`sweeps.geometry.segments_within`).
     """
-    length = np.linalg.norm(ends - starts, axis=1)
+    length = rownorm(ends - starts)
     lmax = np.maximum(length[:, None], length[None, :])
     amax = np.maximum(radius[:, None], radius[None, :])
     limit = np.maximum(rules.near_lengths * lmax, rules.near_radii * amax)
@@ -153,6 +154,30 @@ def near_pairs(
     near = np.zeros((len(starts), len(starts)), dtype=bool)
     near[rows, cols] = True
     return near
+
+
+#: Relative margin of the near-field switch: a pair exactly at the threshold distance (two
+#: segment lengths along a uniformly segmented wire) is near, whatever the rounding.
+NEAR_MARGIN = 1e-9
+
+
+def group_near(
+    starts: NDArray[np.float64],
+    ends: NDArray[np.float64],
+    radius: NDArray[np.float64],
+    p: NDArray[np.int64],
+    q: NDArray[np.int64],
+    rules: KernelRules,
+) -> NDArray[np.bool_]:
+    """Near-field switch for the segment pairs ``(p[k], q[k])``: the rule of :func:`near_pairs`
+    with the relative margin :data:`NEAR_MARGIN` (closest distance up to the threshold)."""
+    from sweeps.geometry import paired_segment_distances
+
+    length = rownorm(ends - starts)
+    limit = np.maximum(rules.near_lengths * np.maximum(length[p], length[q]),
+                       rules.near_radii * np.maximum(radius[p], radius[q]))
+    dist = paired_segment_distances(starts[p], ends[p], starts[q], ends[q])
+    return dist < limit * (1.0 + NEAR_MARGIN)
 
 
 def _pair_radius2(radius: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -210,8 +235,11 @@ class PairTable:
         Segment end points in m.
     radius : ndarray, shape (S,)
         Equivalent radius of each segment in m.
-    near : ndarray of bool, shape (S, S)
-        :func:`near_pairs`.
+    near : ndarray of bool, shape (S, S), optional
+        :func:`near_pairs` of every pair. By default the near-field switch is decided per
+        group (:func:`group_near`), so that geometrically identical pairs get the same rules.
+    rules : KernelRules, optional
+        Rules of that per-group decision (default :class:`KernelRules`).
 
     Attributes
     ----------
@@ -227,22 +255,28 @@ class PairTable:
         starts: NDArray[np.float64],
         ends: NDArray[np.float64],
         radius: NDArray[np.float64],
-        near: NDArray[np.bool_],
+        near: NDArray[np.bool_] | None = None,
+        rules: KernelRules | None = None,
     ) -> None:
         s = len(starts)
         delta = ends - starts
-        length = np.linalg.norm(delta, axis=1)
+        length = rownorm(delta)
         pts = np.concatenate([starts, ends])
         res = 1e-12 * max(float(np.max(np.ptp(pts, axis=0))), 1e-300)
         feat = np.rint(np.column_stack([length / res, radius / res,
                                         delta / length[:, None] * 1e12])).astype(np.int64)
         rows, cols = _triu(s)
         offset = np.rint((starts[cols] - starts[rows]) / res).astype(np.int64)
-        keys = np.column_stack([feat[rows], feat[cols], near[rows, cols], offset])
-        first, group = _unique_rows(keys)
+        parts = [feat[rows], feat[cols], offset]
+        if near is not None:
+            parts.insert(2, near[rows, cols][:, None])
+        first, group = _unique_rows(np.column_stack(parts))
         self.p = rows[first]
         self.q = cols[first]
-        self.near = near[self.p, self.q]
+        if near is not None:
+            self.near = near[self.p, self.q]
+        else:
+            self.near = group_near(starts, ends, radius, self.p, self.q, rules or KernelRules())
         self.index = np.empty((s, s), dtype=np.int32 if len(first) < 2**29 else np.int64)
         self.index[rows, cols] = group
         self.index[cols, rows] = group
@@ -278,7 +312,7 @@ def static_pair_integrals(
         ``[k, i, j]`` for the representative ``(p, q)`` of group ``k`` (shape ``i`` on ``p``,
         ``j`` on ``q``), in m.
     """
-    length = np.linalg.norm(ends - starts, axis=1)
+    length = rownorm(ends - starts)
     tdir = (ends - starts) / length[:, None]
     fac = 2.0 if kernel == "exact" else 1.0
     out = np.empty((pairs.size, 2, 2))
@@ -348,16 +382,15 @@ def static_integrals(
     kernel : {"exact", "reduced"}
     rules : KernelRules
     near : ndarray of bool, shape (S, S), optional
-        Precomputed :func:`near_pairs`.
+        Near-field switch of every pair; by default decided per group of identical pairs
+        (:class:`PairTable`).
 
     Returns
     -------
     ndarray, shape (2S, 2S)
         Entry ``[2p + i, 2q + j]`` in m (length x length / length).
     """
-    if near is None:
-        near = near_pairs(starts, ends, radius, rules)
-    pairs = PairTable(starts, ends, radius, near)
+    pairs = PairTable(starts, ends, radius, near, rules)
     return pairs.expand(static_pair_integrals(pairs, starts, ends, radius, kernel, rules))
 
 
@@ -400,7 +433,7 @@ class DynamicPoints:
         self.q = rules.dynamic
         u, w = gauss01(self.q)
         self.lam_w = _lambda(u) * w[:, None]  # (Q, 2)
-        length = np.linalg.norm(ends - starts, axis=1)
+        length = rownorm(ends - starts)
         pts = starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]  # (S, Q, 3)
         p, q = pairs.p, pairs.q
         fac = 2.0 if kernel == "exact" else 1.0
@@ -433,7 +466,7 @@ class DynamicPoints:
         rho2 = cap_rho2(cap_radius)
         d2 = np.sum((cap_pos[:, None, :] - self.pts[None, :, :]) ** 2, axis=-1)
         self.cap_r = np.sqrt(d2 + rho2[:, None])  # (C, SQ)
-        dc = np.linalg.norm(cap_pos[:, None, :] - cap_pos[None, :, :], axis=-1)
+        dc = rownorm(cap_pos[:, None, :] - cap_pos[None, :, :])
         self.cap_cap_r = np.sqrt(dc**2 + rho2[:, None] + rho2[None, :])
         self.cap_weights = (self.w[None, :] * self.length[:, None]).reshape(-1)  # (SQ,)
 
@@ -494,12 +527,12 @@ def cap_static_integrals(
     cap_cap : ndarray, shape (C, C)
         ``<1/(4 pi R)>`` between caps in 1/m (disk self term on the diagonal).
     """
-    length = np.linalg.norm(ends - starts, axis=1)
+    length = rownorm(ends - starts)
     tdir = (ends - starts) / length[:, None]
     rho2 = cap_rho2(cap_radius)[:, None]
     j0, j1 = line_integrals(cap_pos[:, None, :], starts[None], tdir[None], length[None], rho2)
     cap_seg = INV4PI * (j0 + j1)
-    d = np.linalg.norm(cap_pos[:, None, :] - cap_pos[None, :, :], axis=-1)
+    d = rownorm(cap_pos[:, None, :] - cap_pos[None, :, :])
     with np.errstate(divide="ignore"):
         cap_cap = INV4PI / np.sqrt(d**2 + rho2 + rho2.T)
     np.fill_diagonal(cap_cap, INV4PI * 16.0 / (3.0 * np.pi * cap_radius))

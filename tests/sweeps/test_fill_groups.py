@@ -140,3 +140,25 @@ def test_pec_wire_has_no_loss_and_round_wire_groups():
     fill = MatrixFill(build_structure(design).mesh(1e9))
     assert not np.any(fill.loss([915e6]))
     assert fill.pairs.size <= fill.mesh.n_segments + 2
+
+
+@pytest.mark.parametrize("name", sorted(SHAPES))
+def test_near_switch_is_the_same_for_identical_pairs(name):
+    # The near-field rules apply below max(2 lengths, 6 radii) (KernelRules). Decided per group,
+    # every pair of a group gets the same rules, and the decision is near_pairs' one except
+    # for pairs within the 1e-9 margin of the threshold (exactly two segment lengths apart on a
+    # uniform wire), which are near.
+    mesh = build_structure(SHAPES[name]).mesh(1e9)
+    s0, s1, radius = mesh.seg_start, mesh.seg_end, mesh.seg_radius
+    rules = KernelRules()
+    table = PairTable(s0, s1, radius, rules=rules)
+    per_pair = near_pairs(s0, s1, radius, rules)
+    grouped = table.near[table.index]
+    length = mesh.seg_length
+    limit = np.maximum(2 * np.maximum.outer(length, length), 6 * np.maximum.outer(radius, radius))
+    full = segment_distances(s0, s1, s0, s1)
+    borderline = np.abs(full - limit) <= 2e-9 * limit
+    assert np.array_equal(grouped[~borderline], per_pair[~borderline])
+    assert grouped[borderline].all()
+    if name == "dipole":
+        assert borderline.any()  # pairs two segment lengths apart exist on a uniform wire
