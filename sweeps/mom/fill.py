@@ -82,10 +82,10 @@ class MatrixFill:
         else:
             cap_seg, cap_cap = np.zeros((0, mesh.n_segments)), np.zeros((0, 0))
         self._assemble_maps()
-        n = self.n_unknowns
-        self.static_vector = self._vector(static.reshape(1, -1)).reshape(n, n)
-        src = np.concatenate([static.sum(axis=(1, 2)), cap_seg.ravel(), cap_cap.ravel()])
-        self.static_scalar = self._scalar(src[None]).reshape(n, n)
+        # the static integrals enter every frequency's source (the assembly is linear)
+        self._static_vector_src = static.reshape(-1)
+        self._static_charge_src = np.concatenate([static.sum(axis=(1, 2)), cap_seg.ravel(),
+                                                  cap_cap.ravel()])
         self._grams = self._gram_matrices()
 
     # ------------------------------------------------------------------ assembly
@@ -138,17 +138,56 @@ class MatrixFill:
         def rows(x: NDArray) -> NDArray:
             return x.transpose(2, 3, 0, 1).ravel()
 
-        self._amap_v = csr_matrix((rows(v_vals), rows(v_cols), indptr), shape=(n * n, 4 * k))
-        self._amap_s = csr_matrix((rows(s_vals), rows(s_cols), indptr),
-                                  shape=(n * n, k + c * s + c * c))
+        # one matrix for both potentials: columns [4K shape integrals | charge integrals], eight
+        # entries per row, so that a source scaled by j omega mu and 1/(j omega eps) gives Z
+        self._n_vector_src = 4 * k
+        indptr = 2 * indptr
+        cols = np.concatenate([rows(v_cols).reshape(-1, 4),
+                               rows(s_cols).reshape(-1, 4) + 4 * k], axis=1).ravel()
+        vals = np.concatenate([rows(v_vals).reshape(-1, 4), rows(s_vals).reshape(-1, 4)],
+                              axis=1).ravel()
+        self._amap = csr_matrix((vals, cols, indptr), shape=(n * n, 4 * k + k + c * s + c * c))
+
+    def _assemble(self, vector: NDArray | None, scalar: NDArray | None) -> NDArray:
+        """``A_V a_V + A_S a_S`` (F, N*N) from shape integrals (F, 4K) and charge integrals
+        (F, K + C S + C^2): either may be ``None`` (left out)."""
+        f = len(vector if vector is not None else scalar)
+        src = np.zeros((self._amap.shape[1], f),
+                       dtype=complex if np.iscomplexobj(vector) or np.iscomplexobj(scalar)
+                       else float)
+        if vector is not None:
+            src[: self._n_vector_src] = vector.T
+        if scalar is not None:
+            src[self._n_vector_src:] = scalar.T
+        return (self._amap @ src).T
+
+    @property
+    def static_vector(self) -> NDArray[np.float64]:
+        """Static part of the vector potential, (N, N) in m."""
+        n = self.n_unknowns
+        return self._vector(self._static_vector_src[None]).reshape(n, n)
+
+    @property
+    def static_scalar(self) -> NDArray[np.float64]:
+        """Static part of the scalar potential, (N, N) in 1/m."""
+        n = self.n_unknowns
+        return self._scalar(self._static_charge_src[None]).reshape(n, n)
 
     def _vector(self, a: NDArray) -> NDArray:
         """Vector potential (F, N*N) from per-group shape integrals (F, 4K)."""
-        return (self._amap_v @ a.T).T
+        return self._assemble(a, None)
 
     def _scalar(self, a: NDArray) -> NDArray:
         """Scalar potential (F, N*N) from the charge integrals: groups, cap-segment, cap-cap."""
-        return (self._amap_s @ a.T).T
+        return self._assemble(None, a)
+
+    def _charge_sources(self, k: NDArray[np.float64], dyn: NDArray) -> NDArray:
+        """Dynamic charge integrals (F, K + C S + C^2): groups, then the end caps."""
+        if not self._n_caps:
+            return dyn[:, :, 4]
+        cs, cc = self._dyn.cap_integrals(k)
+        return np.concatenate([dyn[:, :, 4], cs.reshape(len(k), -1), cc.reshape(len(k), -1)],
+                              axis=1)
 
     def _gram_matrices(self) -> list[tuple[int, NDArray[np.int64], NDArray[np.int64], NDArray]]:
         """Gram matrices ``int f_m . f_n dl`` of each wire (for the conductor loss), sparse.
@@ -213,25 +252,34 @@ class MatrixFill:
             sl = slice(i0, i0 + step)
             k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
             dyn = self._dyn.pair_integrals(k)  # (F, K, 5)
-            vec[sl] = self._vector(dyn[:, :, :4].reshape(len(k), -1)).reshape(-1, n, n)
-            vec[sl] += self.static_vector
-            parts = [dyn[:, :, 4]]
-            if self._n_caps:
-                cs, cc = self._dyn.cap_integrals(k)
-                parts += [cs.reshape(len(k), -1), cc.reshape(len(k), -1)]
-            sca[sl] = self._scalar(np.concatenate(parts, axis=1)).reshape(-1, n, n)
-            sca[sl] += self.static_scalar
+            vec[sl] = self._vector(dyn[:, :, :4].reshape(len(k), -1)
+                                   + self._static_vector_src).reshape(-1, n, n)
+            sca[sl] = self._scalar(self._charge_sources(k, dyn)
+                                   + self._static_charge_src).reshape(-1, n, n)
         return vec, sca
 
     def efie_direct(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
-        """EFIE matrix filled afresh at every frequency: shape (F, N, N) in ohm."""
+        """EFIE matrix filled afresh at every frequency: shape (F, N, N) in ohm.
+
+        ``Z = j omega mu V + S / (j omega eps)`` in one sparse product: the per-group integrals
+        (static plus dynamic) are scaled by the two factors before the assembly.
+        """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
-        vec, sca = self.potentials(f)
-        omega = 2.0 * np.pi * f
-        vec *= (1j * omega * MU0)[:, None, None]
-        sca /= (1j * omega * EPS0)[:, None, None]
-        vec += sca
-        return vec
+        n = self.n_unknowns
+        out = np.empty((len(f), n, n), dtype=complex)
+        step = self._chunk()
+        for i0 in range(0, len(f), step):
+            sl = slice(i0, i0 + step)
+            k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
+            jwmu = 1j * 2.0 * np.pi * f[sl] * MU0
+            jweps_inv = 1.0 / (1j * 2.0 * np.pi * f[sl] * EPS0)
+            dyn = self._dyn.pair_integrals(k)  # (F, K, 5)
+            vector = dyn[:, :, :4].reshape(len(k), -1) + self._static_vector_src
+            vector *= jwmu[:, None]
+            charge = self._charge_sources(k, dyn) + self._static_charge_src
+            charge *= jweps_inv[:, None]
+            out[sl] = self._assemble(vector, charge).reshape(-1, n, n)
+        return out
 
     def efie(
         self, f_hz: NDArray[np.float64], *, interpolate: bool | None = None
