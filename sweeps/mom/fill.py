@@ -319,10 +319,15 @@ class MatrixFill:
     def wire_impedances(self, f_hz: NDArray[np.float64]) -> list[NDArray[np.complex128]]:
         """Internal impedance per unit length (ohm/m) of each lossy wire, in ``_grams`` order."""
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        key = f.tobytes()
+        last = getattr(self, "_zs_last", None)
+        if last is not None and last[0] == key:  # the band of the last call (fill, then power)
+            return last[1]
         out = []
         for wi, *_ in self._grams:
             wire = self.mesh.structure.wires[wi]
             out.append(wire.section.internal_impedance(f, wire.conductivity_s_per_m))
+        self._zs_last = (key, out)
         return out
 
     def add_loss(self, z: NDArray[np.complex128], f_hz: NDArray[np.float64]) -> None:

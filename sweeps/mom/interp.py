@@ -225,11 +225,16 @@ class _Interpolant:
         self.loss_after = loss and not self.loss_rows
         self.stack = stack.view(float)  # (rows, 2 N*N)
 
-    def __call__(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
-        """Interpolated EFIE (plus loss, if asked) matrices at wavenumbers ``k``: (F, N, N)."""
+    def __call__(self, k: NDArray[np.float64],
+                 f_hz: NDArray[np.float64] | None = None) -> NDArray[np.complex128]:
+        """Interpolated EFIE (plus loss, if asked) matrices at wavenumbers ``k``: (F, N, N).
+
+        ``f_hz`` are the same frequencies in Hz if known (for the conductor loss).
+        """
+        f = k / (2.0 * np.pi * C_INV) if f_hz is None else f_hz
         coef = barycentric_weights(self.nodes, k) / k[:, None]  # (F, n)
         if self.loss_rows:
-            zs = self.fill.wire_impedances(k / (2.0 * np.pi * C_INV))
+            zs = self.fill.wire_impedances(f)
             coef = np.concatenate([coef] + [np.stack([z.real, z.imag], axis=1) for z in zs],
                                   axis=1)
         n = self.fill.n_unknowns
@@ -238,7 +243,7 @@ class _Interpolant:
         if self.phase is not None:
             _apply_phase(out.reshape(len(k), -1), k, self.phase)
         if self.loss_after:
-            self.fill.add_loss(out, k / (2.0 * np.pi * C_INV))
+            self.fill.add_loss(out, f)
         return out
 
 
@@ -258,10 +263,10 @@ def _piece(fill: MatrixFill, f: NDArray[np.float64], depth: int = 0,
         interp = _Interpolant(fill, nodes, z_nodes[:-1], phase, loss)
         z_chk = z_nodes[-1]
         if loss:
-            z_chk = z_chk + fill.loss(np.array([lo / (2.0 * np.pi * C_INV)]))[0]
+            fill.add_loss(z_nodes[-1:], np.array([lo / (2.0 * np.pi * C_INV)]))
         # interpolate the whole band; the check compares at the low edge, where the error of
         # Chebyshev interpolation is largest, and that frequency then gets the exact matrix
-        out = interp(k)
+        out = interp(k, f)
         err = float(np.linalg.norm(out[i_lo] - z_chk) / np.linalg.norm(z_chk))
         if err <= INTERP_TOL:
             out[k == lo] = z_chk
