@@ -361,11 +361,12 @@ class MatrixFill:
         out = np.zeros((len(f), currents.shape[-1]))
         for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f),
                                              strict=True):
-            for i0 in range(0, len(f), 2 * _LOSS_BLOCK):  # small temporaries
-                c = currents[i0: i0 + 2 * _LOSS_BLOCK]
+            # frequency blocks keep the gathered currents below ~100 kB (no fresh pages)
+            step = max(1, int(100e3 // (16 * len(rows) * currents.shape[-1])))
+            for i0 in range(0, len(f), step):
+                c = currents[i0: i0 + step]
                 quad = np.einsum("fek,e,fek->fk", c[:, rows, :].conj(), vals, c[:, cols, :])
-                out[i0: i0 + 2 * _LOSS_BLOCK] += 0.5 * zs.real[i0: i0 + 2 * _LOSS_BLOCK, None] \
-                    * quad.real
+                out[i0: i0 + step] += 0.5 * zs.real[i0: i0 + step, None] * quad.real
         return out
 
     def loads(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
