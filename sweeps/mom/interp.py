@@ -191,7 +191,9 @@ def _plan(fill: MatrixFill, span_k: float, n_freq: int) -> tuple[int, bool]:
     n_phase = _nodes_needed(span_k, extent)
     # the whole phase is a pessimistic model of the matrix entries (most of them are far
     # smaller than the largest): 1e-7 for it keeps the check error near 1e-11 (measured)
-    n_plain = _nodes_needed(span_k, float(np.max(fill.basis_distance)) + extent, 1e-7)
+    pos = fill.mesh.nodes[fill.mesh.basis_node]
+    size = float(np.sqrt(np.sum(np.ptp(pos, axis=0) ** 2)))  # >= every basis distance
+    n_plain = _nodes_needed(span_k, size + extent, 1e-7)
     per = _FILL_COST_NODES / max(n_freq, 1)
     cost_phase = n_phase * (1.0 + per) + _PHASE_COST_NODES
     cost_plain = n_plain * (1.0 + per)
