@@ -121,32 +121,29 @@ class MatrixFill:
             elem_cols[s:, :s] = cap_seg
             elem_cols[:s, s:] = cap_seg.T
             elem_cols[s:, s:] = (k + c * s + np.arange(c * c, dtype=itype)).reshape(c, c)
-        # axes [a, b, m, n]: half a of basis m against half b of basis n
-        half = (2 * mesh.half_seg + mesh.half_shape).T.astype(itype)  # (2, N) shape index
-        v_cols = shape_cols[half[:, None, :, None], half[None, :, None, :]]
-        tvec = mesh.seg_dir[mesh.half_seg.T] * mesh.half_sign.T[:, :, None]  # (2, N, 3)
-        v_vals = (tvec.reshape(-1, 3) @ tvec.reshape(-1, 3).T).reshape(2, n, 2, n)
-        v_vals = v_vals.transpose(0, 2, 1, 3)
-        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).T.astype(itype)
-        s_cols = elem_cols[elem[:, None, :, None], elem[None, :, None, :]]
-        div = mesh.half_div.T
-        s_vals = div[:, None, :, None] * div[None, :, None, :]
-        # four entries per row m N + n, one per pair of halves (a, b) (zeros kept: an end-cap
-        # half carries no axial current); duplicate columns in a row add up in the product
-        indptr = np.arange(0, 4 * n * n + 1, 4, dtype=np.int32 if 4 * n * n < 2**31 else np.int64)
-
-        def rows(x: NDArray) -> NDArray:
-            return x.transpose(2, 3, 0, 1).ravel()
-
-        # one matrix for both potentials: columns [4K shape integrals | charge integrals], eight
-        # entries per row, so that a source scaled by j omega mu and 1/(j omega eps) gives Z
+        # one matrix for both potentials: columns [4K shape integrals | charge integrals] and
+        # eight entries per row m N + n, one per pair of halves (a, b) of bases m and n for each
+        # potential (zeros kept: an end-cap half carries no axial current; duplicate columns in
+        # a row add up in the product), so that a source scaled by j omega mu and
+        # 1/(j omega eps) gives Z. Written in place: no (N, N)-sized temporaries pile up.
         self._n_vector_src = 4 * k
-        indptr = 2 * indptr
-        cols = np.concatenate([rows(v_cols).reshape(-1, 4),
-                               rows(s_cols).reshape(-1, 4) + 4 * k], axis=1).ravel()
-        vals = np.concatenate([rows(v_vals).reshape(-1, 4), rows(s_vals).reshape(-1, 4)],
-                              axis=1).ravel()
-        self._amap = csr_matrix((vals, cols, indptr), shape=(n * n, 4 * k + k + c * s + c * c))
+        vals = np.empty((n, n, 8))
+        cols = np.empty((n, n, 8), dtype=itype)
+        half = (2 * mesh.half_seg + mesh.half_shape).astype(itype)  # (N, 2) shape index
+        tvec = mesh.seg_dir[mesh.half_seg] * mesh.half_sign[:, :, None]  # (N, 2, 3)
+        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).astype(itype)
+        div = mesh.half_div
+        for a in range(2):
+            for b in range(2):
+                t = 2 * a + b
+                cols[:, :, t] = shape_cols[np.ix_(half[:, a], half[:, b])]
+                vals[:, :, t] = tvec[:, a] @ tvec[:, b].T
+                cols[:, :, 4 + t] = elem_cols[np.ix_(elem[:, a], elem[:, b])]
+                cols[:, :, 4 + t] += 4 * k
+                vals[:, :, 4 + t] = np.outer(div[:, a], div[:, b])
+        indptr = np.arange(0, 8 * n * n + 1, 8, dtype=np.int32 if 8 * n * n < 2**31 else np.int64)
+        self._amap = csr_matrix((vals.reshape(-1), cols.reshape(-1), indptr),
+                                shape=(n * n, 4 * k + k + c * s + c * c))
 
     def _assemble(self, vector: NDArray | None, scalar: NDArray | None) -> NDArray:
         """``A_V a_V + A_S a_S`` (F, N*N) from shape integrals (F, 4K) and charge integrals
