@@ -149,14 +149,21 @@ class MatrixFill:
         """``A_V a_V + A_S a_S`` (F, N*N) from shape integrals (F, 4K) and charge integrals
         (F, K + C S + C^2): either may be ``None`` (left out)."""
         f = len(vector if vector is not None else scalar)
-        src = np.zeros((self._amap.shape[1], f),
-                       dtype=complex if np.iscomplexobj(vector) or np.iscomplexobj(scalar)
-                       else float)
-        if vector is not None:
-            src[: self._n_vector_src] = vector.T
-        if scalar is not None:
-            src[self._n_vector_src:] = scalar.T
-        return (self._amap @ src).T
+        cplx = np.iscomplexobj(vector) or np.iscomplexobj(scalar)
+        # real and imaginary parts as separate real columns: the real matrix is never copied
+        # to complex (which would cost 16 bytes per entry per call)
+        src = np.zeros((self._amap.shape[1], 2 * f if cplx else f))
+        for part, sl in ((vector, slice(None, self._n_vector_src)),
+                         (scalar, slice(self._n_vector_src, None))):
+            if part is None:
+                continue
+            if cplx:
+                src[sl, 0::2] = part.real.T
+                src[sl, 1::2] = part.imag.T
+            else:
+                src[sl] = part.T
+        out = self._amap @ src  # (N*N, 2F): columns re, im of each frequency
+        return out.view(complex).T if cplx else out.T
 
     @property
     def static_vector(self) -> NDArray[np.float64]:

@@ -206,9 +206,26 @@ def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np
     return first, inverse.reshape(-1)
 
 
+def _unique_columns(columns: list[NDArray[np.int64]]) -> tuple[NDArray, NDArray]:
+    """:func:`_unique_rows` of the rows formed by ``columns`` (equal-length integer arrays),
+    without forming the (rows, columns) array: one hash per row, verified column by column."""
+    h = np.zeros(len(columns[0]), dtype=np.uint64)
+    for c, col in enumerate(columns):
+        h += col.astype(np.int64).view(np.uint64) * _HASH[c]
+    _, first, inverse = np.unique(h, return_index=True, return_inverse=True)
+    del h
+    inverse = inverse.reshape(-1)
+    rep = first[inverse]
+    if all(np.array_equal(col[rep], col) for col in columns):
+        return first, inverse
+    return _unique_rows(np.column_stack(columns))  # a hash collision: exact sort
+
+
 @lru_cache(maxsize=16)
-def _triu(s: int) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+def _triu(s: int) -> tuple[NDArray[np.int32], NDArray[np.int32]]:
     rows, cols = np.triu_indices(s)
+    itype = np.int32 if s < 2**15 else np.int64
+    rows, cols = rows.astype(itype), cols.astype(itype)
     rows.setflags(write=False)
     cols.setflags(write=False)
     return rows, cols
@@ -265,12 +282,15 @@ class PairTable:
         res = 1e-12 * max(float(np.max(np.ptp(pts, axis=0))), 1e-300)
         feat = np.rint(np.column_stack([length / res, radius / res,
                                         delta / length[:, None] * 1e12])).astype(np.int64)
+        _, cls = _unique_rows(feat)  # segments alike up to translation
         rows, cols = _triu(s)
-        offset = np.rint((starts[cols] - starts[rows]) / res).astype(np.int64)
-        parts = [feat[rows], feat[cols], offset]
+        columns = [cls[rows], cls[cols]]
+        columns += [np.rint((starts[cols, i] - starts[rows, i]) / res).astype(np.int64)
+                    for i in range(3)]  # the offset between the two segments
         if near is not None:
-            parts.insert(2, near[rows, cols][:, None])
-        first, group = _unique_rows(np.column_stack(parts))
+            columns.append(near[rows, cols].astype(np.int64))
+        first, group = _unique_columns(columns)
+        del columns
         self.p = rows[first]
         self.q = cols[first]
         if near is not None:
