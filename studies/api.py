@@ -151,11 +151,16 @@ def run_context(ctx: StudyContext, *, fresh: bool = False, progress: bool | None
             if todo:
                 logger.info("study %r: %d of %d point(s) to evaluate on %s", ctx.name,
                             len(todo), before["total"], ctx.cluster.describe())
-                with open_client(ctx.cluster) as client:
-                    stats = run_points(store, ctx.name, ctx.canonical_json, todo, lease, client,
-                                       task=task, progress=progress,
-                                       done_before=before["total"] - len(todo),
-                                       **runner_options)
+                try:
+                    with open_client(ctx.cluster) as client:
+                        stats = run_points(store, ctx.name, ctx.canonical_json, todo, lease,
+                                           client, task=task, progress=progress,
+                                           done_before=before["total"] - len(todo),
+                                           **runner_options)
+                except KeyboardInterrupt:
+                    if stats is None:  # while the cluster started: nothing was evaluated
+                        raise
+                    stats.interrupted = True  # while it shut down: every result is stored
             counts = store.counts(ctx.name)
     return RunSummary(
         study=ctx.name, store=store.display_url, total=counts["total"], done=counts["done"],
