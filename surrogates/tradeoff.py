@@ -5,7 +5,8 @@ every constraint are reduced to the non-dominated set for the objectives (a cand
 dominated when another is at least as good in every objective and better in one; K. Deb,
 *Multi-Objective Optimization using Evolutionary Algorithms*, Wiley 2001, §2.4). The filter
 sorts candidates lexicographically — a candidate can only be dominated by one before it — and
-sweeps them in blocks against the front found so far.
+sweeps them: with a running minimum for two objectives, a Fenwick tree for three
+(O(n log n)), and in blocks against the front so far for more.
 
 Objectives and constraints may name a target metric or a feature (e.g. minimise
 ``antenna.length_mm`` for the smallest tag).
@@ -23,7 +24,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from surrogates.features import encode, range_warnings, unit_of
+from surrogates.features import range_warnings, unit_of
 from surrogates.sampling import FeatureSampler
 from surrogates.specs import parse_goal
 from surrogates.surrogate import Surrogate
@@ -37,43 +38,115 @@ logger = logging.getLogger(__name__)
 MIN_CANDIDATES = 100_000
 
 
-def non_dominated(F: NDArray[np.float64], block: int = 1024) -> NDArray[np.intp]:
+def _groups(F: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """Lexicographic order of the rows and the group number of each (identical rows share)."""
+    order = np.lexsort(F.T[::-1])
+    S = F[order]
+    new = np.ones(len(S), dtype=bool)
+    new[1:] = np.any(S[1:] != S[:-1], axis=1)
+    return order, np.cumsum(new) - 1
+
+
+def _front_2d(F: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Two objectives: a row is dominated iff an earlier (lexicographic) distinct row has a
+    second objective <= its own; one sweep with a running minimum."""
+    order, group = _groups(F)
+    f2 = F[order, 1]
+    g_min = np.full(group[-1] + 1, np.inf)
+    np.minimum.at(g_min, group, f2)
+    before = np.concatenate([[np.inf], np.minimum.accumulate(g_min)[:-1]])
+    keep = np.empty(len(F), dtype=bool)
+    keep[order] = f2 < before[group]
+    return keep
+
+
+def _front_3d(F: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Three objectives: sweep in lexicographic order keeping, in a Fenwick tree over the
+    ranks of the second objective, the prefix minimum of the third (the sweep of H. T. Kung,
+    F. Luccio & F. P. Preparata, J. ACM 22(4), 1975); O(n log n)."""
+    order, group = _groups(F)
+    S = F[order]
+    ranks = np.searchsorted(np.unique(S[:, 1]), S[:, 1]) + 1  # 1-based, ties share a rank
+    m = int(ranks.max())
+    tree = [np.inf] * (m + 1)
+    keep_sorted = np.zeros(len(S), dtype=bool)
+    f3 = S[:, 2].tolist()
+    rk = ranks.tolist()
+    grp = group.tolist()
+    i = 0
+    n = len(S)
+    while i < n:
+        j = i
+        while j < n and grp[j] == grp[i]:
+            j += 1
+        # query: min third objective among earlier rows with second objective <= this one
+        r, best = rk[i], np.inf
+        while r > 0:
+            best = min(best, tree[r])
+            r -= r & -r
+        dominated = best <= f3[i]
+        keep_sorted[i:j] = not dominated
+        r, v = rk[i], f3[i]
+        while r <= m:
+            if v < tree[r]:
+                tree[r] = v
+            r += r & -r
+        i = j
+    keep = np.empty(n, dtype=bool)
+    keep[order] = keep_sorted
+    return keep
+
+
+def _front_blocks(F: NDArray[np.float64], block: int) -> NDArray[np.bool_]:
+    """Any number of objectives: lexicographic sweep in blocks against the front so far (a
+    row can only be dominated by one before it); O(n x front size)."""
+    order = np.lexsort(F.T[::-1])
+    keep = np.zeros(len(F), dtype=bool)
+    front_vals = np.zeros((0, F.shape[1]))
+    for s in range(0, len(order), block):
+        idx = order[s:s + block]
+        cand = F[idx]
+        for ref in (front_vals, None):
+            if ref is not None and not len(ref):
+                continue
+            other = cand if ref is None else ref
+            le = np.all(other[None, :, :] <= cand[:, None, :], axis=2)
+            lt = np.any(other[None, :, :] < cand[:, None, :], axis=2)
+            ok = ~np.any(le & lt, axis=1)
+            idx, cand = idx[ok], cand[ok]
+        keep[idx] = True
+        front_vals = np.vstack([front_vals, cand])
+    return keep
+
+
+def non_dominated(F: NDArray[np.float64], block: int = 512) -> NDArray[np.intp]:
     """Indices of the non-dominated rows of ``F`` (every column minimised).
 
     Parameters
     ----------
     F : ndarray, shape (n, k)
     block : int
-        Candidates compared against the front at once.
+        Rows compared at once by the general (k >= 4) sweep.
 
     Returns
     -------
     ndarray of int
-        Row indices of the front, in lexicographic order of ``F``. Exact duplicates are all
-        kept (neither dominates the other).
+        Row indices of the front, increasing. Exact duplicates are all kept (neither
+        dominates the other).
     """
     F = np.asarray(F, dtype=float)
     if F.ndim != 2 or len(F) == 0:
         return np.zeros(0, dtype=np.intp)
-    order = np.lexsort(F.T[::-1])
-    front: list[int] = []
-    front_vals = np.zeros((0, F.shape[1]))
-    for s in range(0, len(order), block):
-        idx = order[s:s + block]
-        cand = F[idx]
-        if len(front_vals):
-            le = np.all(front_vals[None, :, :] <= cand[:, None, :], axis=2)
-            lt = np.any(front_vals[None, :, :] < cand[:, None, :], axis=2)
-            keep = ~np.any(le & lt, axis=1)
-            idx, cand = idx[keep], cand[keep]
-        if len(cand) > 1:
-            le = np.all(cand[None, :, :] <= cand[:, None, :], axis=2)
-            lt = np.any(cand[None, :, :] < cand[:, None, :], axis=2)
-            keep = ~np.any(le & lt, axis=1)
-            idx, cand = idx[keep], cand[keep]
-        front.extend(idx.tolist())
-        front_vals = np.vstack([front_vals, cand])
-    return np.asarray(front, dtype=np.intp)
+    k = F.shape[1]
+    if k == 1:
+        keep = F[:, 0] == F[:, 0].min()
+    elif k == 2:
+        keep = _front_2d(F)
+    elif k == 3:
+        keep = _front_3d(F)
+    else:
+        keep = _front_blocks(F, block)
+    return np.flatnonzero(keep)
 
 
 @dataclass
@@ -92,7 +165,7 @@ class TradeoffResult:
     n_candidates, n_feasible : int
     warnings : list of str
     candidates : DataFrame
-        A random subset (at most 20 000) of the feasible candidates, for plots.
+        A random subset (at most 20 000) of the feasible candidates (means only), for plots.
     """
 
     front: pd.DataFrame
@@ -159,36 +232,40 @@ def tradeoff(
     U = sampler.sample(n_candidates, seed)
     targets = surrogate.target_names
     means = {t: np.empty(len(U)) for t in targets}
-    stds = {t: np.empty(len(U)) for t in targets}
     for s in range(0, len(U), batch):
-        m, sd = surrogate.predict_unit(U[s:s + batch], targets)
+        m, _ = surrogate.predict_unit(U[s:s + batch], targets, return_std=False)
         for t in targets:
             means[t][s:s + batch] = m[t]
-            stds[t][s:s + batch] = sd[t]
     table = sampler.values(U)
     for t in targets:
         table[t] = means[t]
-        table[f"{t}_std"] = stds[t]
     ok = np.ones(len(table), dtype=bool)
     for n, (lo, hi) in cons.items():
         v = table[n].to_numpy(dtype=float)
         ok &= (v >= lo) & (v <= hi)
-    feasible = table[ok].reset_index(drop=True)
+    rows = np.flatnonzero(ok)
+    feasible = table.iloc[rows].reset_index(drop=True)
     n_feasible = len(feasible)
     if n_feasible == 0:
         warns.append("no candidate meets every constraint; the front is empty "
                      "(loosen --constraint or widen the study space)")
-        return TradeoffResult(front=feasible, objectives=goals, constraints=cons,
+        empty = feasible.assign(**{f"{t}_std": [] for t in targets})
+        return TradeoffResult(front=empty, objectives=goals, constraints=cons,
                               n_candidates=len(U), n_feasible=0, warnings=warns,
-                              candidates=feasible)
+                              candidates=empty)
     F = np.column_stack([(-1.0 if g == "max" else 1.0) * feasible[n].to_numpy(dtype=float)
                          for n, g in goals.items()])
     idx = non_dominated(F)
-    front = feasible.iloc[idx].drop_duplicates().reset_index(drop=True)
     first, g0 = next(iter(goals.items()))
+    front = feasible.iloc[idx].copy()
+    front["_row"] = rows[idx]
+    front = front.drop_duplicates(subset=[c for c in front.columns if c != "_row"])
     front = front.sort_values(first, ascending=(g0 == "min"), kind="mergesort")
+    U_front = U[front.pop("_row").to_numpy()]
     front = front.reset_index(drop=True)
-    U_front = surrogate_inputs(surrogate, front)
+    _, sd = surrogate.predict_unit(U_front, targets)
+    for t in targets:
+        front[f"{t}_std"] = sd[t]
     flags = [[] for _ in range(len(front))]
     for t in targets:
         for i in np.flatnonzero(surrogate.null_nearby(t, U_front)):
@@ -201,11 +278,6 @@ def tradeoff(
     return TradeoffResult(front=front, objectives=goals, constraints=cons,
                           n_candidates=len(U), n_feasible=n_feasible, warnings=warns,
                           candidates=sub.reset_index(drop=True))
-
-
-def surrogate_inputs(surrogate: Surrogate, table: pd.DataFrame) -> NDArray[np.float64]:
-    """Model inputs of a table holding the surrogate's feature columns."""
-    return encode(surrogate.features, table[surrogate.feature_names], source="front")
 
 
 def _label(name: str) -> str:
