@@ -13,9 +13,9 @@ from surrogates import FeatureSpec, build_dataset, fit_surrogate
 
 @pytest.fixture(scope="session")
 def solver_study() -> tuple[pd.DataFrame, pd.DataFrame]:
-    """128 Sobol training points and 48 independent random held-out points, solved."""
+    """128 Sobol training points and 32 independent random held-out points, solved."""
     train = unit_to_points(qmc.Sobol(3, scramble=True, seed=11).random_base2(7))
-    held = unit_to_points(np.random.default_rng(20260).random((48, 3)))
+    held = unit_to_points(np.random.default_rng(20260).random((32, 3)))
     return study_table(train, "t"), study_table(held, "h")
 
 
