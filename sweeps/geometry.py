@@ -249,7 +249,7 @@ class MeshRules:
     """
 
     segments_per_wavelength: float = 50.0
-    min_segments_per_piece: int = 1
+    min_segments_per_piece: int = 2
     end_caps: bool = True
     max_ka: float = 0.1
     min_length_over_radius: dict[str, float] = field(
@@ -336,24 +336,98 @@ class Mesh:
         return d / np.linalg.norm(d, axis=1)[:, None]
 
     def enclosing_radius(self) -> float:
-        """Radius in m of the smallest sphere enclosing all nodes plus the conductor radii.
+        """Radius in m of the smallest sphere enclosing the conductors.
 
-        Welzl-style exact minimal ball would be overkill here: the bounding sphere is found by
-        minimising the largest distance with scipy (convex problem), which is exact to the
-        optimiser tolerance.
+        The smallest ball containing the polyline vertices contains every straight piece
+        (balls are convex), so Welzl's algorithm runs on the vertices only (E. Welzl,
+        "Smallest enclosing disks (balls and ellipsoids)", LNCS 555, 1991); the largest conductor
+        half-extent is added for the trace's own width.
         """
-        from scipy.optimize import minimize
+        pts = np.unique(np.vstack([w.points for w in self.structure.wires]), axis=0)
+        _, r = min_enclosing_ball(pts)
+        extent = max(w.section.half_extent_m for w in self.structure.wires)
+        return r + extent
 
-        pts = self.nodes
-        c0 = 0.5 * (pts.min(axis=0) + pts.max(axis=0))
 
-        def worst(c: NDArray[np.float64]) -> float:
-            return float(np.max(np.linalg.norm(pts - c, axis=1)))
+def _merge_points(points: NDArray[np.float64], tol: float
+                  ) -> tuple[NDArray[np.float64], NDArray[np.int64]]:
+    """Merge points closer than ``tol``: unique nodes and the node index of every point."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+    from scipy.spatial import cKDTree
 
-        res = minimize(worst, c0, method="Nelder-Mead",
-                       options={"xatol": 1e-9, "fatol": 1e-12, "maxiter": 4000})
-        r = min(worst(res.x), worst(c0))
-        return r + float(np.max(self.seg_radius))
+    n = len(points)
+    pairs = cKDTree(points).query_pairs(tol, output_type="ndarray")
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _, labels = connected_components(graph, directed=False)
+    # number nodes in order of first appearance, keep the first point of each group
+    _, first = np.unique(labels, return_index=True)
+    order = np.argsort(first)
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
+    return points[first[order]], rank[labels].astype(np.int64)
+
+
+def _ball_on(boundary: list[NDArray[np.float64]]) -> tuple[NDArray[np.float64], float]:
+    """Smallest ball with all of 1-4 points on its surface (circumscribed ball)."""
+    if len(boundary) == 1:
+        return boundary[0], 0.0
+    a = boundary[0]
+    if len(boundary) == 2:
+        c = 0.5 * (a + boundary[1])
+        return c, float(np.linalg.norm(boundary[1] - c))
+    if len(boundary) == 3:
+        ab, ac = boundary[1] - a, boundary[2] - a
+        nrm = np.cross(ab, ac)
+        n2 = float(np.dot(nrm, nrm))
+        if n2 <= 1e-30 * float(np.dot(ab, ab) * np.dot(ac, ac)):
+            pairs = [(boundary[i], boundary[j]) for i in range(3) for j in range(i + 1, 3)]
+            p, q = max(pairs, key=lambda pq: float(np.linalg.norm(pq[0] - pq[1])))
+            return _ball_on([p, q])
+        c = a + (np.dot(ac, ac) * np.cross(nrm, ab) + np.dot(ab, ab) * np.cross(ac, nrm)) / (
+            2.0 * n2)
+        return c, float(np.linalg.norm(a - c))
+    m = np.array([boundary[i] - a for i in (1, 2, 3)])
+    rhs = 0.5 * np.sum(m * m, axis=1)
+    try:
+        c = a + np.linalg.solve(m, rhs)
+    except np.linalg.LinAlgError:
+        best = None
+        for drop in range(4):
+            sub = [boundary[i] for i in range(4) if i != drop]
+            cc, rr = _ball_on(sub)
+            if all(np.linalg.norm(p - cc) <= rr * (1 + 1e-12) + 1e-15 for p in boundary):
+                if best is None or rr < best[1]:
+                    best = (cc, rr)
+        return best if best is not None else _ball_on(boundary[:3])
+    return c, float(np.linalg.norm(a - c))
+
+
+def min_enclosing_ball(points: NDArray[np.float64]) -> tuple[NDArray[np.float64], float]:
+    """Centre and radius of the smallest ball containing ``points`` (n, 3); Welzl's algorithm.
+
+    Iterative move-to-front form with a fixed shuffle (deterministic); exact up to round-off.
+    """
+    pts = [np.asarray(p, dtype=float) for p in points]
+    rng = np.random.default_rng(12345)
+    pts = [pts[i] for i in rng.permutation(len(pts))]
+
+    def inside(p: NDArray[np.float64], ball: tuple[NDArray[np.float64], float]) -> bool:
+        return float(np.linalg.norm(p - ball[0])) <= ball[1] * (1 + 1e-12) + 1e-15
+
+    def welzl(n: int, boundary: list[NDArray[np.float64]]) -> tuple[NDArray[np.float64], float]:
+        ball = _ball_on(boundary) if boundary else (pts[0], 0.0)
+        if len(boundary) == 4:
+            return ball
+        for i in range(n):
+            if not boundary and i == 0:
+                ball = (pts[0], 0.0)
+                continue
+            if not inside(pts[i], ball):
+                ball = welzl(i, [*boundary, pts[i]])
+        return ball
+
+    return welzl(len(pts), [])
 
 
 def _point_segment_distance(
@@ -544,30 +618,9 @@ class Structure:
                 sub_wire.append(wi)
                 sub_piece.append(pi)
 
-        # --- merge coincident points into nodes
+        # --- merge coincident points into nodes (KD-tree pairs within tol, then components)
         all_pts = np.vstack(sub_pts)
-        nodes: list[NDArray[np.float64]] = []
-        index = np.empty(len(all_pts), dtype=np.int64)
-        order = np.lexsort(all_pts.T[::-1])
-        for idx in order:
-            p = all_pts[idx]
-            found = -1
-            for cand in range(len(nodes) - 1, max(-1, len(nodes) - 64), -1):
-                if np.linalg.norm(nodes[cand] - p) <= tol:
-                    found = cand
-                    break
-            if found < 0:
-                # fall back to a full search when sorting did not put twins side by side
-                if nodes:
-                    dist = np.linalg.norm(np.asarray(nodes) - p, axis=1)
-                    j = int(np.argmin(dist))
-                    if dist[j] <= tol:
-                        found = j
-            if found < 0:
-                nodes.append(p)
-                found = len(nodes) - 1
-            index[idx] = found
-        node_arr = np.asarray(nodes)
+        node_arr, index = _merge_points(all_pts, tol)
 
         seg_nodes_l: list[tuple[int, int]] = []
         seg_wire_l: list[int] = []
@@ -737,6 +790,9 @@ def _check_clearance(
     clearance = extent[:, None] + extent[None, :]
     suspect = dist < clearance
     np.fill_diagonal(suspect, False)
+    # segments sharing a node are neighbours by definition
+    share = (seg_nodes[:, None, :, None] == seg_nodes[None, :, None, :]).any(axis=(2, 3))
+    suspect &= ~share
     if not suspect.any():
         return
     n_nodes = len(nodes)

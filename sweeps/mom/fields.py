@@ -99,7 +99,8 @@ def radiation_vector(
     """``A(r_hat) = sum I t dl e^{jk r_hat . r}``: shape (D, K, 3) (A m) for directions (D, 3)."""
     pos, elem = points.elements(np.asarray(currents))
     phase = np.exp(1j * k * (r_hat @ pos.T))  # (D, P)
-    return np.einsum("dp,pkc->dkc", phase, elem)
+    n_k = elem.shape[1]
+    return (phase @ elem.reshape(len(pos), -1)).reshape(len(r_hat), n_k, 3)
 
 
 def _perp(a: NDArray[np.complex128], r_hat: NDArray[np.float64]) -> NDArray[np.complex128]:

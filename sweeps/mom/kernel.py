@@ -67,9 +67,9 @@ class KernelRules:
     def __init__(
         self,
         static_far: int = 4,
-        dynamic: int = 3,
+        dynamic: int = 2,
         near_outer: int = 10,
-        near_phi: int = 8,
+        near_phi: int = 10,
         near_lengths: float = 2.0,
         near_radii: float = 6.0,
     ) -> None:
@@ -182,15 +182,19 @@ def static_integrals(
     u, w = gauss01(rules.static_far)
     lam_w = _lambda(u) * w[:, None]  # (Q, 2)
     pts = starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]  # (S, Q, 3)
+    q = rules.static_far
     out = np.empty((s, 2, s, 2))
-    chunk = max(1, int(2e7 // (s * rules.static_far**2 + 1)))
+    chunk = max(1, int(2e7 // (s * q * q + 1)))
+    flat = pts.reshape(-1, 3)
+    sq = np.sum(flat * flat, axis=1)
     for p0 in range(0, s, chunk):
         p1 = min(s, p0 + chunk)
-        d = pts[p0:p1, :, None, None, :] - pts[None, None, :, :, :]
-        r = np.sqrt(np.sum(d * d, axis=-1) + extra2[p0:p1, None, :, None])  # (c, Q, S, Q)
-        g = 1.0 / r
-        block = np.einsum("puqv,ui,vj->piqj", g, lam_w, lam_w, optimize=True)
-        out[p0:p1] = block
+        blk = pts[p0:p1].reshape(-1, 3)
+        d2 = np.maximum(np.sum(blk * blk, axis=1)[:, None] + sq[None, :] - 2.0 * blk @ flat.T,
+                        0.0).reshape(p1 - p0, q, s, q)
+        g = 1.0 / np.sqrt(d2 + extra2[p0:p1, None, :, None])  # (c, Q, S, Q)
+        tmp = (g @ lam_w).reshape(p1 - p0, q, 2 * s)  # contract v
+        out[p0:p1] = np.matmul(lam_w.T, tmp).reshape(p1 - p0, 2, s, 2)  # contract u
     out *= INV4PI * length[:, None, None, None] * length[None, None, :, None]
 
     # near pairs: outer graded Gauss on p, closed-form inner integral on q, ring average
@@ -281,7 +285,9 @@ class DynamicPoints:
         g = np.expm1(-1j * k[:, None, None] * self.r[None]) * self.inv4pir[None]
         g = g.reshape(len(k), s, q, s, q)
         tmp = g @ self.lam_w  # (F, S, Q, S, 2)
-        out = np.einsum("fpuqj,ui->fpiqj", tmp, self.lam_w, optimize=True)
+        # contract u: (F, S, Q, S*2) with lam_w (Q, 2) -> (F, S, 2, S*2)
+        out = np.matmul(self.lam_w.T, tmp.reshape(len(k), s, q, 2 * s))
+        out = out.reshape(len(k), s, 2, s, 2)
         out *= self.scale[None, :, None, :, None]
         return out.reshape(len(k), 2 * s, 2 * s)
 

@@ -35,7 +35,7 @@ def start_graded_gauss01(n: int) -> tuple[NDArray[np.float64], NDArray[np.float6
     """Gauss rule on [0, 1] after ``u = t^3``: grades toward ``u = 0`` only.
 
     The Jacobian ``3 t^2`` turns ``ln u`` into ``t^2 ln t``; for the ring average of the exact
-    kernel this gives about 1e-5 relative accuracy with 8 points (``tests/sweeps/test_kernel.py``).
+    kernel this gives about 1e-4 relative accuracy with 10 points (``tests/sweeps/test_kernel.py``).
     """
     t, w = gauss01(n)
     return t**3, w * 3.0 * t**2

@@ -1,0 +1,443 @@
+"""Evaluate a study's missing points on dask and store each finished batch at once.
+
+The client (this process) owns the store; workers only run :func:`evaluate_batch`, a pure
+function of the study config and a list of ``(point_id, params)`` that returns one
+:class:`~studies.points.Record` per point. The client keeps a few batches per worker thread in
+flight, sizes batches from the measured time per point (so that one batch takes about
+``target_batch_s``; bounded by ``max_batch`` and shrunk near the end so no worker idles), and
+writes every finished batch in one transaction.
+
+Failures
+--------
+- A point whose evaluation raises is a ``failed`` record with the exception as its reason; it is
+  stored like any result and not retried.
+- A worker that dies (killed, out of memory, segfault) is replaced by its nanny and dask
+  re-runs its batch elsewhere; if dask gives up on a batch (``KilledWorker``) every point of it
+  counts one attempt and is resubmitted alone, so a point that kills workers is isolated and,
+  after ``max_attempts``, stored as ``failed`` with the reason.
+- Any other error of the cluster itself (workers that cannot import filamant, a lost scheduler)
+  stops the run with everything finished so far stored; nothing is marked failed for it.
+- Ctrl-C (``KeyboardInterrupt``) stops the run: batches already finished are stored, the rest
+  are cancelled; the caller releases the lease.
+"""
+
+from __future__ import annotations
+
+import functools
+import logging
+import math
+import os
+import signal
+import socket
+import statistics
+import sys
+import threading
+import time
+import uuid
+from collections import deque
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from typing import Any, Literal, get_args
+
+from studies.lease import Lease
+from studies.points import Point, Record
+from studies.store import Store
+from sweeps.errors import ConfigError, FilamantError, StoreError
+
+__all__ = ["ClusterSettings", "JobSystem", "RunStats", "evaluate_batch", "make_jobqueue_cluster",
+           "open_client", "run_points", "default_workers"]
+
+logger = logging.getLogger(__name__)
+
+JobSystem = Literal["slurm", "pbs", "sge", "lsf", "htcondor", "oar", "moab"]
+_JOBQUEUE_CLASSES: dict[str, str] = {
+    "slurm": "SLURMCluster", "pbs": "PBSCluster", "sge": "SGECluster", "lsf": "LSFCluster",
+    "htcondor": "HTCondorCluster", "oar": "OARCluster", "moab": "MoabCluster",
+}
+assert set(_JOBQUEUE_CLASSES) == set(get_args(JobSystem))
+
+#: A worker task: ``(study_json, [(point_id, params)]) -> [Record]``.
+Task = Callable[[str, list[tuple[str, dict[str, Any]]]], list[Record]]
+
+
+def default_workers() -> int:
+    """One worker per core available to this process."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class ClusterSettings:
+    """Where the work runs (``[cluster]``).
+
+    Parameters
+    ----------
+    workers : int, optional
+        Worker processes of a LocalCluster (single-threaded); default one per core.
+    scheduler : str, optional
+        Address of a running dask scheduler (``tcp://host:8786``) to join instead.
+    jobqueue : mapping, optional
+        Start workers through a batch system: ``system`` (slurm, pbs, sge, lsf, htcondor, oar,
+        moab), ``jobs`` (number of batch jobs), and any dask-jobqueue option (``queue``,
+        ``cores``, ``memory``, ``walltime``, ``account``, ``job_extra_directives``, ...) passed
+        through unchanged.
+    """
+
+    workers: int | None = None
+    scheduler: str | None = None
+    jobqueue: Mapping[str, Any] | None = None
+
+    def __post_init__(self) -> None:
+        if self.workers is not None and (int(self.workers) != self.workers or self.workers < 1):
+            raise ConfigError(f"cluster.workers: must be a whole number >= 1 "
+                              f"(got {self.workers!r})")
+        if self.scheduler is not None and self.jobqueue:
+            raise ConfigError("cluster: give either scheduler or jobqueue, not both")
+
+    def describe(self) -> str:
+        if self.scheduler:
+            return f"dask scheduler {self.scheduler}"
+        if self.jobqueue:
+            return f"{self.jobqueue.get('system')} batch jobs via dask-jobqueue"
+        return f"{self.workers or default_workers()} local worker process(es)"
+
+
+def make_jobqueue_cluster(options: Mapping[str, Any]) -> tuple[Any, int]:
+    """Construct (but do not scale) the dask-jobqueue cluster of ``[cluster.jobqueue]``.
+
+    Returns ``(cluster, jobs)``. Workers are single-threaded: ``processes`` defaults to
+    ``cores``, so every job runs one worker process per core.
+
+    Raises
+    ------
+    ConfigError
+        For an unknown system, a missing dask-jobqueue, or options it rejects.
+    """
+    opts = dict(options)
+    system = str(opts.pop("system", "")).lower()
+    jobs = opts.pop("jobs", 1)
+    if system not in _JOBQUEUE_CLASSES:
+        raise ConfigError(f"cluster.jobqueue.system: expected one of "
+                          f"{', '.join(get_args(JobSystem))} (got {system or 'nothing'!r})")
+    if int(jobs) != jobs or jobs < 1:
+        raise ConfigError(f"cluster.jobqueue.jobs: must be a whole number >= 1 (got {jobs!r})")
+    try:
+        import dask_jobqueue
+    except ImportError:
+        raise ConfigError("cluster.jobqueue: needs the dask-jobqueue package "
+                          "(pip install 'filamant[jobqueue]')") from None
+    cls = getattr(dask_jobqueue, _JOBQUEUE_CLASSES[system])
+    known = _jobqueue_options(cls)
+    unknown = sorted(k for k in opts if k not in known)
+    if unknown:
+        import difflib
+
+        close = difflib.get_close_matches(unknown[0], sorted(known), n=1)
+        hint = f"; did you mean {close[0]}?" if close else ""
+        raise ConfigError(f"cluster.jobqueue.{unknown[0]}: not an option of dask-jobqueue's "
+                          f"{_JOBQUEUE_CLASSES[system]}{hint}")
+    if "cores" in opts:
+        opts.setdefault("processes", opts["cores"])
+    opts.setdefault("scheduler_options", {"dashboard_address": ":0"})
+    try:
+        cluster = cls(**opts)
+    except (TypeError, ValueError) as exc:
+        raise ConfigError(f"cluster.jobqueue: {_JOBQUEUE_CLASSES[system]} rejected the options: "
+                          f"{exc}") from None
+    return cluster, int(jobs)
+
+
+def _jobqueue_options(cls: type) -> set[str]:
+    """Keyword options a dask-jobqueue cluster class accepts (its own, its job class's and the
+    base job class's)."""
+    import inspect
+
+    from dask_jobqueue.core import Job
+
+    names: set[str] = set()
+    for fn in (cls.__init__, getattr(cls, "job_cls", Job).__init__, Job.__init__):
+        names |= {p.name for p in inspect.signature(fn).parameters.values()
+                  if p.kind in (p.POSITIONAL_OR_KEYWORD, p.KEYWORD_ONLY)}
+    return names - {"self", "scheduler", "job_cls"}
+
+
+@contextmanager
+def _children_ignore_sigint() -> Iterator[None]:
+    """Start local worker processes with SIGINT ignored (an ignored signal stays ignored across
+    exec), so Ctrl-C in a terminal, which reaches the whole process group, stops the client
+    cleanly instead of killing the workers under it. Ctrl-C is ignored for that moment."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+
+
+@contextmanager
+def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
+                ) -> Iterator[Any]:
+    """A ``distributed.Client`` on the cluster ``settings`` describes; closed on exit.
+
+    ``connect_timeout_s`` bounds the wait for a running scheduler (``[cluster] scheduler``).
+    """
+    from distributed import Client, LocalCluster
+
+    if settings.scheduler:
+        try:
+            client = Client(settings.scheduler, timeout=f"{connect_timeout_s}s")
+        except (OSError, TimeoutError) as exc:
+            raise ConfigError(f"cluster.scheduler: cannot reach {settings.scheduler} "
+                              f"({exc})") from None
+        try:
+            yield client
+        finally:
+            client.close()
+        return
+    if settings.jobqueue:
+        cluster, jobs = make_jobqueue_cluster(settings.jobqueue)
+        cluster.scale(jobs=jobs)
+    else:
+        import dask
+
+        # one task per worker thread at a time: a worker that dies was running exactly the
+        # batch it is blamed for (dask counts every task on a dead worker as suspicious)
+        with dask.config.set({"distributed.scheduler.worker-saturation": 1.0}), \
+                _children_ignore_sigint():
+            cluster = LocalCluster(n_workers=settings.workers or default_workers(),
+                                   threads_per_worker=1, processes=True,
+                                   dashboard_address=":0")
+    try:
+        client = Client(cluster)
+        try:
+            yield client
+        finally:
+            client.close()
+    finally:
+        cluster.close()
+
+
+# -- the worker side ------------------------------------------------------------------------
+
+
+@functools.lru_cache(maxsize=4)
+def _evaluator(study_json: str) -> Callable[[dict[str, Any]], Record]:
+    from studies.context import point_evaluator
+
+    return point_evaluator(study_json)
+
+
+def evaluate_batch(study_json: str, items: list[tuple[str, dict[str, Any]]]) -> list[Record]:
+    """Evaluate points of a study (runs on a worker; never touches the store).
+
+    Parameters
+    ----------
+    study_json : str
+        The study's canonical config as JSON (``Study.canonical()``).
+    items : list of (point_id, params)
+
+    Returns
+    -------
+    list of Record
+        One per item, in order; an evaluation that raises gives ``ok=False`` with the reason.
+    """
+    worker = f"{socket.gethostname()}:{os.getpid()}"
+    evaluate = _evaluator(study_json)
+    out = []
+    for pid, params in items:
+        t0 = time.perf_counter()
+        try:
+            rec = evaluate(params)
+            rec.point_id = pid
+        except Exception as exc:  # any failure of one design is that point's result
+            rec = Record(pid, ok=False, reason=f"{type(exc).__name__}: {exc}")
+        rec.elapsed_s = time.perf_counter() - t0
+        rec.worker = worker
+        out.append(rec)
+    return out
+
+
+# -- the client side ------------------------------------------------------------------------
+
+
+@dataclass
+class RunStats:
+    """What one call of :func:`run_points` did."""
+
+    evaluated: int = 0
+    failed: int = 0
+    batches: int = 0
+    lost_batches: int = 0
+    interrupted: bool = False
+    elapsed_s: float = 0.0
+    seconds_per_point: float | None = None
+    workers: int = 0
+    batch_sizes: list[int] = field(default_factory=list)
+
+
+class ClusterError(ConfigError):
+    """The cluster failed in a way that is not one point's fault (reported under [cluster])."""
+
+
+def run_points(
+    store: Store,
+    study: str,
+    study_json: str,
+    todo: Sequence[Point],
+    lease: Lease,
+    client: Any,
+    *,
+    task: Task = evaluate_batch,
+    progress: bool | None = None,
+    done_before: int = 0,
+    max_attempts: int = 3,
+    target_batch_s: float = 1.0,
+    max_batch: int = 64,
+    in_flight_per_worker: int = 3,
+) -> RunStats:
+    """Evaluate ``todo`` on ``client``'s cluster, storing every finished batch.
+
+    Parameters
+    ----------
+    store, study, lease
+        Where results go; each batch is written under ``lease`` in one transaction.
+    study_json : str
+        Canonical config JSON handed to ``task``.
+    todo : sequence of Point
+        The points to evaluate (status planned).
+    client : distributed.Client
+    task : callable
+        The worker function (default :func:`evaluate_batch`).
+    progress : bool, optional
+        Show a progress bar on stderr (default: when stderr is a terminal).
+    done_before : int
+        Points already finished (the bar starts there).
+    max_attempts : int
+        Attempts per point whose worker died before it is stored as failed.
+    target_batch_s : float
+        Wanted wall time of one batch in s.
+    max_batch : int
+        Largest batch.
+    in_flight_per_worker : int
+        Batches kept queued per worker thread.
+
+    Returns
+    -------
+    RunStats
+    """
+    from distributed import as_completed
+    from distributed.scheduler import KilledWorker
+    from tqdm import tqdm
+
+    stats = RunStats()
+    t_start = time.perf_counter()
+    queue: deque[Point] = deque(todo)
+    retry: deque[Point] = deque()  # resubmitted alone after a lost batch
+    inflight: dict[Any, list[Point]] = {}
+    times: deque[float] = deque(maxlen=256)
+    ac = as_completed()
+    tag = uuid.uuid4().hex[:8]
+
+    def slots() -> int:
+        n = sum(client.nthreads().values())
+        stats.workers = max(stats.workers, n)
+        return max(1, n)
+
+    def batch_size() -> int:
+        if not times:
+            return 1
+        per = statistics.median(times)
+        size = max(1, min(max_batch, round(target_batch_s / max(per, 1e-6))))
+        tail = math.ceil(len(queue) / (slots() * in_flight_per_worker))
+        return max(1, min(size, tail))
+
+    def submit() -> None:
+        limit = slots() * in_flight_per_worker
+        while (queue or retry) and len(inflight) < limit:
+            if retry:
+                batch = [retry.popleft()]
+            else:
+                k = batch_size()
+                batch = [queue.popleft() for _ in range(min(k, len(queue)))]
+            key = f"filamant-{tag}-{len(stats.batch_sizes)}-{batch[0].point_id}"
+            fut = client.submit(task, study_json, [(p.point_id, p.params) for p in batch],
+                                pure=False, key=key)
+            stats.batch_sizes.append(len(batch))
+            inflight[fut] = batch
+            ac.add(fut)
+
+    def handle(fut: Any, batch: list[Point]) -> None:
+        status = fut.status
+        if status == "finished":
+            records = fut.result()
+            got = [r.point_id for r in records]
+            if sorted(got) != sorted(p.point_id for p in batch):
+                raise ClusterError(f"cluster: a batch returned results for other points "
+                                   f"({got[:3]}...); refusing to store them")
+            store.write_batch(study, records, owner=lease.owner)
+            stats.batches += 1
+            stats.evaluated += len(records)
+            stats.failed += sum(not r.ok for r in records)
+            times.extend(r.elapsed_s for r in records if r.ok)
+            bar.update(len(records))
+            return
+        exc = fut.exception() if status == "error" else None
+        if status in ("cancelled", "lost") or isinstance(exc, KilledWorker):
+            stats.lost_batches += 1
+            reason = f"worker died while evaluating it ({type(exc).__name__ if exc else status})"
+            ids = [p.point_id for p in batch]
+            gone = set(store.record_lost_attempt(study, ids, reason, owner=lease.owner,
+                                                 max_attempts=max_attempts))
+            logger.warning("a batch of %d point(s) was lost with its worker; %d resubmitted "
+                           "alone, %d given up", len(batch), len(batch) - len(gone), len(gone))
+            stats.failed += len(gone)
+            bar.update(len(gone))
+            retry.extend(p for p in batch if p.point_id not in gone)
+            return
+        raise ClusterError(f"cluster: a batch failed outside the solver: "
+                           f"{type(exc).__name__}: {exc} (is filamant installed, at this "
+                           "version, on every worker?)")
+
+    bar = tqdm(total=done_before + len(todo), initial=done_before, unit="pt", file=sys.stderr,
+               desc=study, dynamic_ncols=True, smoothing=0.1,
+               disable=(not sys.stderr.isatty()) if progress is None else not progress)
+    try:
+        submit()
+        for fut in ac:
+            batch = inflight.pop(fut)
+            handle(fut, batch)
+            if lease.lost.is_set():
+                raise StoreError(f"{store.display_url}: study {study!r}: the run lease was taken "
+                                 "over by another client; stopping")
+            submit()
+    except KeyboardInterrupt:
+        stats.interrupted = True
+        logger.warning("interrupted: storing finished batches, cancelling the rest")
+        for fut, batch in list(inflight.items()):
+            if fut.status == "finished":
+                try:
+                    handle(fut, batch)
+                except (FilamantError, OSError) as exc:  # pragma: no cover - best effort
+                    logger.warning("could not store a finished batch: %s", exc)
+        _cancel(client, list(inflight))
+    except BaseException:
+        _cancel(client, list(inflight))
+        raise
+    finally:
+        bar.close()
+        stats.elapsed_s = time.perf_counter() - t_start
+        stats.seconds_per_point = statistics.median(times) if times else None
+    return stats
+
+
+def _cancel(client: Any, futures: list[Any]) -> None:
+    if futures:
+        try:
+            client.cancel(futures)
+        except Exception as exc:  # noqa: BLE001 - the cluster may already be gone
+            logger.debug("cancel failed: %s", exc)

@@ -1,0 +1,59 @@
+"""Options and output helpers shared by the verbs."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import re
+import sys
+from typing import Any
+
+__all__ = [
+    "add_set_option",
+    "add_json_option",
+    "print_json",
+    "is_touchstone_path",
+    "dash",
+    "format_number",
+]
+
+_TOUCHSTONE = re.compile(r"\.s\d+p$", re.IGNORECASE)
+
+
+def add_set_option(parser: argparse.ArgumentParser) -> None:
+    """``--set section.key=value`` (repeatable) into ``args.set`` (a list, possibly empty)."""
+    parser.add_argument(
+        "--set", action="append", default=[], metavar="SECTION.KEY=VALUE",
+        help="override a config value (a TOML value or a bare word), e.g. "
+             "--set antenna.width_mm=2; repeatable",
+    )
+
+
+def add_json_option(parser: argparse.ArgumentParser) -> None:
+    """``--json``: print one JSON object on stdout instead of the readable output."""
+    parser.add_argument("--json", action="store_true",
+                        help="print one JSON object on stdout instead of a table")
+
+
+def print_json(obj: Any) -> None:
+    """Print ``obj`` as one JSON object (no NaN or infinity: those must be ``None`` already)."""
+    sys.stdout.write(json.dumps(obj, indent=2, allow_nan=False) + "\n")
+
+
+def is_touchstone_path(path: str) -> bool:
+    """Whether ``path`` names a Touchstone file by its ``.sNp`` suffix."""
+    return bool(_TOUCHSTONE.search(str(path)))
+
+
+def dash() -> str:
+    """The mark of a missing value: an em dash where stdout can print one."""
+    try:
+        "\u2014".encode(sys.stdout.encoding or "ascii")
+    except (UnicodeEncodeError, LookupError):
+        return "-"
+    return "\u2014"
+
+
+def format_number(value: float) -> str:
+    """A metric value for a table: five significant digits."""
+    return f"{value:.5g}"
