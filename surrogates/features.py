@@ -71,6 +71,13 @@ def unit_of(name: str) -> str:
     return ""
 
 
+def _level_key(v: Any) -> str:
+    """Comparable text of a choice level: numbers by their float value (30000 == 3e4)."""
+    if _is_number(v):
+        return repr(float(v))
+    return str(v)
+
+
 def _is_number(v: Any) -> bool:
     return isinstance(v, int | float | np.integer | np.floating) and not isinstance(v, bool)
 
@@ -123,7 +130,9 @@ class FeatureSpec:
                 object.__setattr__(self, "min", min(vals))
                 object.__setattr__(self, "max", max(vals))
             else:
-                vals = tuple(str(v) for v in vals)
+                vals = tuple(v if isinstance(v, str) else float(v) for v in vals)
+                if len({_level_key(v) for v in vals}) != len(vals):
+                    raise ConfigError(f"space.{self.name}: values repeat (got {list(vals)})")
                 if self.log:
                     raise ConfigError(
                         f"space.{self.name}: log scaling needs numeric values (got {list(vals)})"
@@ -266,15 +275,15 @@ def encode(
         if len(raw) != n:
             raise ConfigError(f"{source}: {f.name!r} has {len(raw)} values, expected {n}")
         if f.kind == "category":
-            levels = list(f.values)  # type: ignore[arg-type]
+            levels = [_level_key(v) for v in f.values]  # type: ignore[union-attr]
             onehot = np.zeros((n, len(levels)))
             for i, v in enumerate(raw):
                 try:
-                    onehot[i, levels.index(str(v))] = 1.0
+                    onehot[i, levels.index(_level_key(v))] = 1.0
                 except ValueError:
                     raise ConfigError(
                         f"{source}: {f.name}={v!r} is not one of the studied values "
-                        f"{levels}; the surrogate cannot answer for it"
+                        f"{list(f.values)}; the surrogate cannot answer for it"
                     ) from None
             cols.append(onehot)
             continue

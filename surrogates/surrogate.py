@@ -18,6 +18,7 @@ from numpy.typing import NDArray
 
 from surrogates.features import FeatureSpec, encode, n_columns, unit_of
 from sweeps.errors import ConfigError
+from sweeps.metrics import METRIC_UNITS
 
 __all__ = ["CVScores", "TargetModel", "Surrogate", "nearest_distance"]
 
@@ -91,7 +92,9 @@ class TargetModel:
 
     @property
     def unit(self) -> str:
-        return unit_of(self.name)
+        """Unit of the metric (``sweeps.metrics.METRIC_UNITS``, else from its name)."""
+        u = METRIC_UNITS.get(self.name, "") or unit_of(self.name)
+        return "" if u == "1" else u
 
 
 @dataclass

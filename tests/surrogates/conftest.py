@@ -6,9 +6,9 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy.stats import qmc
-from surrogate_solver_cases import FEATURES, study_table, unit_to_points
 
 from surrogates import FeatureSpec, build_dataset, fit_surrogate
+from tests.surrogates.surrogate_solver_cases import FEATURES, study_table, unit_to_points
 
 
 @pytest.fixture(scope="session")

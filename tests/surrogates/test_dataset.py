@@ -7,7 +7,6 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import ANALYTIC_FEATURES
 
 from surrogates.dataset import MIN_ROWS, build_dataset, training_sha256
 from surrogates.features import (
@@ -18,6 +17,7 @@ from surrogates.features import (
     unit_of,
 )
 from sweeps.errors import ConfigError
+from tests.surrogates.conftest import ANALYTIC_FEATURES
 
 
 def test_units_come_from_the_name_suffix():
@@ -152,3 +152,12 @@ def test_pandas_nullable_floats_are_read_as_null():
                        "resonance_mhz": pd.array([1.0] * 10 + [None, None], dtype="Float64")})
     ds = build_dataset(df, [FeatureSpec("antenna.length_mm", 100, 200)], ["resonance_mhz"])
     assert ds.targets["resonance_mhz"].n_dropped == 2
+
+
+def test_mixed_choice_levels_match_numbers_by_value():
+    f = FeatureSpec("antenna.conductivity_s_per_m", values=(3e4, "pec"))
+    assert f.kind == "category"
+    X = encode([f], {"antenna.conductivity_s_per_m": [30000, "pec", 3.0e4]})
+    np.testing.assert_array_equal(X, [[1, 0], [0, 1], [1, 0]])
+    with pytest.raises(ConfigError, match="distinct"):
+        FeatureSpec("antenna.conductivity_s_per_m", values=(3e4, 30000, "pec"))

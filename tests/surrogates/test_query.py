@@ -8,11 +8,11 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import analytic_metrics
 from scipy.optimize import brentq
 
 from surrogates.query import forward, forward_table, solve_for
 from sweeps.errors import ConfigError
+from tests.surrogates.conftest import analytic_metrics
 
 NOMINAL = {"antenna.length_mm": 150.0, "antenna.conductivity_s_per_m": 1e4,
            "switch.closed.r_ohm": 20.0, "antenna.filament": "metal"}

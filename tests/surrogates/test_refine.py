@@ -5,13 +5,13 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import ANALYTIC_FEATURES
 from scipy.stats import qmc
 
 from surrogates import FeatureSpec, build_dataset, fit_surrogate
 from surrogates.features import encode
 from surrogates.refine import propose_points, refine_points
 from sweeps.errors import ConfigError
+from tests.surrogates.conftest import ANALYTIC_FEATURES
 
 FEATS = [FeatureSpec("antenna.length_mm", 100.0, 200.0),
          FeatureSpec("antenna.width_mm", 0.5, 4.0)]

@@ -12,11 +12,17 @@ import math
 
 import numpy as np
 import pytest
-from surrogate_solver_cases import LENGTH, SIGMA, WIDTH, evaluate_point, evaluate_points
 
 from surrogates.query import forward_table, solve_for
 from surrogates.specs import Tolerance
 from surrogates.yield_ import draw_parameters, yield_estimate
+from tests.surrogates.surrogate_solver_cases import (
+    LENGTH,
+    SIGMA,
+    WIDTH,
+    evaluate_point,
+    evaluate_points,
+)
 
 
 def test_every_target_picked_by_cross_validation(solver_surrogate):

@@ -9,7 +9,6 @@ import zipfile
 
 import numpy as np
 import pytest
-from conftest import ANALYTIC_FEATURES
 
 from surrogates.features import FeatureSpec
 from surrogates.store import (
@@ -20,6 +19,7 @@ from surrogates.store import (
     surrogate_path,
 )
 from sweeps.errors import ConfigError, StoreError
+from tests.surrogates.conftest import ANALYTIC_FEATURES
 
 
 def _members(path):
