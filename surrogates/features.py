@@ -172,7 +172,7 @@ class FeatureSpec:
         """``"range"``, ``"levels"`` (numeric choice) or ``"category"`` (named choice)."""
         if self.values is None:
             return "range"
-        return "levels" if _is_number(self.values[0]) else "category"
+        return "levels" if all(_is_number(v) for v in self.values) else "category"
 
     @property
     def discrete(self) -> bool:
