@@ -39,7 +39,8 @@ from sweeps.errors import ConfigError, StoreError
 
 __all__ = ["FitOutcome", "surrogate_fingerprint", "feature_specs", "nominal_values",
            "done_table", "study_targets", "fit_study", "load_study_surrogate", "split_sets",
-           "verify_point", "query_values", "CONFIG_SECTIONS", "study_surrogate_path"]
+           "verify_point", "query_values", "CONFIG_SECTIONS", "study_surrogate_path",
+           "add_refinement_points"]
 
 logger = logging.getLogger(__name__)
 
@@ -265,3 +266,47 @@ def verify_point(ctx: StudyContext, params: Mapping[str, Any]) -> dict[str, floa
     rec = point_evaluator(ctx.canonical_json)(clean)
     return {k: (None if v is None or (isinstance(v, float) and not math.isfinite(v)) else v)
             for k, v in rec.metrics.items()}
+
+
+def add_refinement_points(ctx: StudyContext, n: int, *, seed: int = 0) -> list[dict[str, Any]]:
+    """Propose ``n`` new points where the study's surrogate is least certain and add them to
+    the study as ``planned`` (the hook of ``filamant run STUDY.toml --refine N``).
+
+    Fits a surrogate to the points done so far (:func:`surrogates.refine.refine_points`: max
+    predictive standard deviation over a Sobol candidate set, with a spacing rule), then stores
+    the new points under the study's run lease in one transaction. The caller runs the study
+    (which evaluates every ``planned`` point) and fits again.
+
+    Returns
+    -------
+    list of dict
+        The new points' parameters (config units).
+
+    Raises
+    ------
+    StoreError
+        No study yet, or another run holds the lease.
+    """
+    from studies.lease import Lease
+    from studies.points import Point
+    from studies.store import Store
+    from surrogates.refine import refine_points
+
+    table, _ = done_table(ctx)
+    targets, _ = study_targets(ctx, table)
+    params, _ = refine_points(table, feature_specs(ctx), targets, n,
+                              model=ctx.study.surrogate.model, seed=seed)
+    with Store(ctx.store_url, create=False) as store, \
+            Lease.acquire(store, ctx.name, command="refine") as lease:
+        seq = store.next_seq(ctx.name)
+        known = {p.point_id for p in store.points(ctx.name)}
+        points = []
+        for i, p in enumerate(params):
+            pid = ctx.point_id(p)
+            if pid in known:
+                continue
+            known.add(pid)
+            points.append(Point(pid, p, seq + i, "solver"))
+        store.write_batch(ctx.name, [], owner=lease.owner, new_points=points)
+    logger.info("study %r: %d refinement point(s) planned", ctx.name, len(points))
+    return [p.params for p in points]

@@ -62,8 +62,8 @@ class BoostingSurrogate(RegressorMixin, BaseEstimator):
 
     def __init__(
         self,
-        n_members: int = 8,
-        n_estimators: int = 200,
+        n_members: int = 6,
+        n_estimators: int = 150,
         max_depth: int = 3,
         learning_rate: float = 0.1,
         random_state: int = 0,

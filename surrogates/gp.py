@@ -39,6 +39,11 @@ def _kernel(constant: float, length_scale: NDArray[np.float64], nu: float, noise
             + WhiteKernel(noise, b["noise"]))
 
 
+def _tri_inv(L: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Inverse of a lower-triangular matrix (for the predictive variance)."""
+    return solve_triangular(L, np.eye(len(L)), lower=True, check_finite=False)
+
+
 class GPSurrogate(RegressorMixin, BaseEstimator):
     """Gaussian-process regressor with predictive standard deviation.
 
@@ -68,6 +73,8 @@ class GPSurrogate(RegressorMixin, BaseEstimator):
         ``K^-1 y`` for the normalised targets.
     L_ : ndarray, shape (n, n)
         Lower Cholesky factor of ``K + jitter I``.
+    L_inv_ : ndarray, shape (n, n)
+        Its inverse (derived from ``L_``; not stored in surrogate files).
     y_train_ : ndarray, shape (n,)
         Normalised training targets.
     y_mean_, y_std_ : float
@@ -141,6 +148,7 @@ class GPSurrogate(RegressorMixin, BaseEstimator):
         self.X_train_ = np.array(X, dtype=float)
         self.alpha_ = np.asarray(gpr.alpha_, dtype=float).ravel()
         self.L_ = np.asarray(gpr.L_, dtype=float)
+        self.L_inv_ = _tri_inv(self.L_)
         self.y_train_ = yn
         self.y_mean_ = mean
         self.y_std_ = std
@@ -171,8 +179,8 @@ class GPSurrogate(RegressorMixin, BaseEstimator):
             kt = self._cross(xb)
             mean[s:s + step] = kt @ self.alpha_
             if std is not None:
-                v = solve_triangular(self.L_, kt.T, lower=True, check_finite=False)
-                var = self.constant_ + self.noise_ - np.einsum("ij,ij->j", v, v)
+                v = kt @ self.L_inv_.T  # = (L^-1 k)^T: a product is cheaper than triangular solves
+                var = self.constant_ + self.noise_ - np.einsum("ij,ij->i", v, v)
                 std[s:s + step] = np.sqrt(np.clip(var, 0.0, None))
         mean = mean * self.y_std_ + self.y_mean_
         if std is None:
@@ -189,12 +197,22 @@ class GPSurrogate(RegressorMixin, BaseEstimator):
         """
         if self.nu != 2.5:
             return self.learned_kernel()(X, self.X_train_)
-        a = X / self.length_scale_
-        b = self.X_train_ / self.length_scale_
-        sq = np.einsum("ij,ij->i", a, a)[:, None] + np.einsum("ij,ij->i", b, b)[None, :]
-        sq -= 2.0 * (a @ b.T)
-        r = np.sqrt(5.0 * np.clip(sq, 0.0, None))
-        return self.constant_ * (1.0 + r + r * r / 3.0) * np.exp(-r)
+        a = X * (np.sqrt(5.0) / self.length_scale_)
+        b = self.X_train_ * (np.sqrt(5.0) / self.length_scale_)
+        r = a @ b.T
+        r *= -2.0
+        r += np.einsum("ij,ij->i", a, a)[:, None]
+        r += np.einsum("ij,ij->i", b, b)[None, :]
+        np.clip(r, 0.0, None, out=r)
+        np.sqrt(r, out=r)  # sqrt(5) |x - y| / l
+        e = np.exp(-r)
+        poly = r * r
+        poly *= 1.0 / 3.0
+        poly += r
+        poly += 1.0
+        poly *= e
+        poly *= self.constant_
+        return poly
 
     # -- arrays + JSON form (see surrogates.store) ------------------------------------------
     def to_state(self) -> tuple[dict[str, Any], dict[str, NDArray]]:
@@ -248,6 +266,7 @@ class GPSurrogate(RegressorMixin, BaseEstimator):
         m.X_train_ = X
         m.alpha_ = alpha
         m.L_ = L
+        m.L_inv_ = _tri_inv(L)
         m.y_train_ = yn
         m.y_mean_ = float(params["y_mean"])
         m.y_std_ = float(params["y_std"])

@@ -196,3 +196,23 @@ def test_yield_reports_share_interval_and_worst_metric(fitted, tmp_path):
     assert code == 0 and "Wilson interval" in out and "3 sigma, normal" in out
     code, _, err = _cli("yield", cfg, "--tolerance", "antenna.width_mm=±0.3")
     assert code == 2 and "--spec" in err
+
+
+@pytest.mark.slow
+def test_refinement_adds_planned_points_that_a_run_then_evaluates(tmp_path):
+    """The --refine hook: N new points, stored as planned, evaluated by the next run."""
+    from studies.api import load_context, run_context, table_of
+    from studies.surrogate_api import add_refinement_points, fit_study
+
+    cfg = tmp_path / "refine.toml"
+    cfg.write_text(STUDY.format(points=51))
+    ctx = load_context(cfg)
+    run_context(ctx, progress=False)
+    new = add_refinement_points(ctx, 4, seed=0)
+    assert len(new) == 4
+    t = table_of(ctx)
+    assert (t["status"] == "planned").sum() == 4 and len(t) == 36
+    s = run_context(ctx, progress=False)
+    assert s.evaluated == 4 and s.done == 36
+    res = fit_study(ctx)
+    assert res.surrogate.meta["n_done"] == 36
