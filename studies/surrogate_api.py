@@ -40,7 +40,7 @@ from sweeps.errors import ConfigError, StoreError
 __all__ = ["FitOutcome", "surrogate_fingerprint", "feature_specs", "nominal_values",
            "done_table", "study_targets", "fit_study", "load_study_surrogate", "split_sets",
            "verify_point", "query_values", "CONFIG_SECTIONS", "study_surrogate_path",
-           "add_refinement_points"]
+           "add_refinement_points", "Query", "open_query"]
 
 logger = logging.getLogger(__name__)
 
@@ -310,3 +310,26 @@ def add_refinement_points(ctx: StudyContext, n: int, *, seed: int = 0) -> list[d
         store.write_batch(ctx.name, [], owner=lease.owner, new_points=points)
     logger.info("study %r: %d refinement point(s) planned", ctx.name, len(points))
     return [p.params for p in points]
+
+
+@dataclass
+class Query:
+    """What a query verb starts from: the config, its surrogate and the ``--set`` values."""
+
+    ctx: StudyContext
+    surrogate: Surrogate
+    path: Path
+    warnings: list[str]
+    given: dict[str, Any]
+
+
+def open_query(study: str | os.PathLike[str], sets: Sequence[str]) -> Query:
+    """Load the config (``--set`` of ``study.``/``cluster.``/``surrogate.`` keys applied), its
+    surrogate (refused if fitted for another config) and the ``--set`` parameter values."""
+    from studies.api import load_context
+
+    overrides, values = split_sets(sets)
+    ctx = load_context(study, overrides)
+    sur, path, warns = load_study_surrogate(ctx)
+    return Query(ctx=ctx, surrogate=sur, path=path, warnings=warns,
+                 given=query_values(ctx, values))

@@ -64,22 +64,13 @@ def _fmt(v: Any, unit: str = "") -> str:
 
 def run(args: argparse.Namespace) -> int:
     """Answer a forward or inverse question from the study's surrogate."""
-    from studies.api import load_context
     from studies.cautions import read_range_cautions
-    from studies.surrogate_api import (
-        load_study_surrogate,
-        nominal_values,
-        query_values,
-        split_sets,
-        verify_point,
-    )
+    from studies.surrogate_api import nominal_values, open_query, verify_point
     from surrogates.query import forward, solve_for
     from sweeps.errors import ConfigError
 
-    overrides, sets = split_sets(args.set)
-    ctx = load_context(args.study, overrides)
-    sur, path, warns = load_study_surrogate(ctx)
-    given = query_values(ctx, sets)
+    q = open_query(args.study, args.set)
+    ctx, sur, path, warns, given = q.ctx, q.surrogate, q.path, q.warnings, q.given
     nominal = nominal_values(ctx)
     inverse = bool(args.solve_for or args.target)
     if inverse and not (args.solve_for and args.target):

@@ -71,16 +71,13 @@ def _write_csv(df: Any, path: Path) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Compute, save and print the trade-off front of ``args.study``."""
-    from studies.api import load_context
-    from studies.surrogate_api import load_study_surrogate, query_values, split_sets
+    from studies.surrogate_api import open_query
     from surrogates.specs import parse_assignments, parse_range
     from surrogates.tradeoff import plot_front, tradeoff
     from sweeps.errors import ConfigError
 
-    overrides, sets = split_sets(args.set)
-    ctx = load_context(args.study, overrides)
-    sur, _, warns = load_study_surrogate(ctx)
-    fixed = query_values(ctx, sets)
+    q = open_query(args.study, args.set)
+    ctx, sur, warns, fixed = q.ctx, q.surrogate, q.warnings, q.given
     goals, cons = _from_config(ctx)
     if args.objective:
         goals = dict(parse_assignments(args.objective, "--objective"))

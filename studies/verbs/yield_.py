@@ -46,21 +46,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Estimate the yield of the nominal design of ``args.study``."""
-    from studies.api import load_context
-    from studies.surrogate_api import (
-        load_study_surrogate,
-        nominal_values,
-        query_values,
-        split_sets,
-    )
+    from studies.surrogate_api import nominal_values, open_query
     from surrogates.specs import parse_assignments, parse_range, parse_tolerance
     from surrogates.yield_ import plot_yield, yield_estimate
     from sweeps.errors import ConfigError
 
-    overrides, sets = split_sets(args.set)
-    ctx = load_context(args.study, overrides)
-    sur, _, warns = load_study_surrogate(ctx)
-    given = query_values(ctx, sets)
+    q = open_query(args.study, args.set)
+    ctx, sur, warns, given = q.ctx, q.surrogate, q.warnings, q.given
     if not args.spec:
         raise ConfigError("give at least one --spec metric=lo:hi")
     specs = {k: parse_range(v, f"--spec {k}")

@@ -33,6 +33,12 @@ def _write(path, members):
             zf.writestr(n, b)
 
 
+def _resign(members, manifest):
+    """What a forger who also recomputes the manifest digest would write."""
+    manifest["manifest_sha256"] = _manifest_digest(manifest)
+    members["manifest.json"] = json.dumps(manifest).encode()
+
+
 def _query(table):
     return table[[f.name for f in ANALYTIC_FEATURES]].iloc[:20]
 
@@ -95,8 +101,7 @@ def test_edited_hyperparameter_with_a_forged_manifest_digest_is_refused(saved):
     m = _members(saved)
     man = json.loads(m["manifest.json"])
     man["targets"]["resonance_mhz"]["params"]["constant"] *= 1.5
-    man["manifest_sha256"] = _manifest_digest(man)
-    m["manifest.json"] = json.dumps(man).encode()
+    _resign(m, man)
     _write(saved, m)
     with pytest.raises(StoreError, match="Cholesky factor does not match"):
         load_surrogate(saved)
@@ -144,8 +149,7 @@ def test_a_pickled_object_array_is_refused_without_running_it(saved, tmp_path):
     m[f"arrays/{key}.npy"] = buf.getvalue()
     # a forger who also fixes every digest
     man["arrays"][key].update(dtype="|O", shape=[1], sha256=hashlib.sha256(b"x").hexdigest())
-    man["manifest_sha256"] = _manifest_digest(man)
-    m["manifest.json"] = json.dumps(man).encode()
+    _resign(m, man)
     _write(saved, m)
     with pytest.raises(StoreError, match="not a plain numeric array"):
         load_surrogate(saved)
@@ -177,8 +181,7 @@ def test_forged_array_with_matching_digest_still_fails_consistency(saved):
     np.lib.format.write_array(out, x, allow_pickle=False)
     m[f"arrays/{key}.npy"] = out.getvalue()
     man["arrays"][key]["sha256"] = _array_digest(x)
-    man["manifest_sha256"] = _manifest_digest(man)
-    m["manifest.json"] = json.dumps(man).encode()
+    _resign(m, man)
     _write(saved, m)
     with pytest.raises(StoreError, match="inconsistent content"):
         load_surrogate(saved)
