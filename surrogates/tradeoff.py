@@ -243,6 +243,16 @@ def tradeoff(
     for n, (lo, hi) in cons.items():
         v = table[n].to_numpy(dtype=float)
         ok &= (v >= lo) & (v <= hi)
+    # a metric that did not exist near a candidate can neither meet a constraint nor rank it
+    for n in dict.fromkeys([*goals, *cons]):
+        if n in surrogate.targets and surrogate.targets[n].n_dropped:
+            null = np.zeros(len(U), dtype=bool)
+            for s in range(0, len(U), batch):
+                null[s:s + batch] = surrogate.null_nearby(n, U[s:s + batch])
+            if null.any():
+                warns.append(f"{int(null.sum())} candidates left out: the nearest study point "
+                             f"had no {n} (the metric does not exist there)")
+            ok &= ~null
     rows = np.flatnonzero(ok)
     feasible = table.iloc[rows].reset_index(drop=True)
     n_feasible = len(feasible)

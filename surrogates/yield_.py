@@ -71,7 +71,8 @@ class YieldResult:
     confidence : float
     n_draws, n_pass : int
     fail_share : dict
-        Per spec metric: share of draws failing that spec (a draw may fail several).
+        Per spec metric: share of draws failing that spec (a draw may fail several; a draw
+        whose nearest study point had no value of the metric fails it).
     worst : str or None
         The metric that fails most often (``None`` if nothing fails).
     nominal : dict
@@ -225,6 +226,10 @@ def yield_estimate(
         rng = np.random.default_rng(np.random.SeedSequence(seed).spawn(2)[1])
         values = {m: mean[m] + std[m] * rng.standard_normal(len(U)) for m in names}
     passes = spec_pass(values, specs)
+    # where the metric did not exist at the nearest study point, the design fails its spec
+    nulls = {m: surrogate.null_nearby(m, U) for m in names}
+    for m in names:
+        passes[m] &= ~nulls[m]
     ok = np.logical_and.reduce(list(passes.values()))
     n_pass = int(ok.sum())
     lo, hi = wilson_interval(n_pass, n_draws, confidence)
@@ -240,10 +245,9 @@ def yield_estimate(
         warns.append(f"{outside.mean():.1%} of the draws fall outside the trained ranges: "
                      "those predictions are EXTRAPOLATED")
     for m in names:
-        null = surrogate.null_nearby(m, U)
-        if null.any():
-            warns.append(f"{m}: {null.mean():.1%} of the draws lie nearest study points where "
-                         f"{m} did not exist; their predicted {m} may stand for nothing")
+        if nulls[m].any():
+            warns.append(f"{m}: {nulls[m].mean():.1%} of the draws lie nearest study points "
+                         f"where {m} did not exist; they count as failing its spec")
     u0 = encode(surrogate.features, {k: [v] for k, v in params.items()})
     m0, s0 = surrogate.predict_unit(u0, names)
     nominal_out: dict[str, Any] = dict(params)

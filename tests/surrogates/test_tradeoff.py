@@ -112,3 +112,11 @@ def test_tradeoff_arguments_are_checked(zdt2_surrogate):
         tradeoff(zdt2_surrogate, {"f1": "min"}, n_candidates=1000)
     with pytest.raises(ConfigError, match="at least one"):
         tradeoff(zdt2_surrogate, {})
+
+
+def test_candidates_where_a_used_metric_does_not_exist_are_left_out(analytic_surrogate):
+    r = tradeoff(analytic_surrogate, {"modulation_factor": "max", "efficiency": "max"})
+    assert any("left out" in w and "modulation_factor" in w for w in r.warnings)
+    # the analytic study has modulation_factor only below 185 mm
+    assert r.front["antenna.length_mm"].max() < 190.0
+    assert (r.front["flags"] == "").all()

@@ -125,3 +125,13 @@ def test_yield_arguments_are_checked(linear_surrogate, analytic_surrogate):
         yield_estimate(analytic_surrogate, nominal_a,
                        [Tolerance("antenna.conductivity_s_per_m", 60.0, percent=True)],
                        {"efficiency": (0, 1)})
+
+
+def test_draws_where_the_metric_does_not_exist_fail_its_spec(analytic_surrogate):
+    # modulation_factor is null above 185 mm in the analytic study: a nominal at 190 mm
+    nominal = {"antenna.length_mm": 190.0, "antenna.conductivity_s_per_m": 1e3,
+               "switch.closed.r_ohm": 20.0, "antenna.filament": "metal"}
+    r = yield_estimate(analytic_surrogate, nominal, [Tolerance("antenna.length_mm", 3.0)],
+                       {"modulation_factor": (-1.0, 1.0)})
+    assert r.share < 0.5 and r.worst == "modulation_factor"
+    assert any("count as failing its spec" in w for w in r.warnings)
