@@ -1,0 +1,246 @@
+"""The report's surrogate figures: trade-off front, parameter sensitivity, yield.
+
+They read the study's fitted surrogate (``filamant fit`` writes it beside the config) and ask
+it the questions below; without a surrogate, or with one trained on another config, the page
+says so instead of showing a figure.
+
+Defaults, each overridden by the ``report`` options of the same name as the query verbs:
+
+trade-off (``--objective``, ``--constraint``)
+    The objectives of ``[optimize]`` for an optimization study; otherwise every surrogate
+    target with a natural direction (:data:`NATURAL_GOALS`: more efficiency, gain, bandwidth,
+    modulation, differential RCS and read range; less Q and reflection). When
+    ``resonance_mhz`` is a target it becomes a constraint instead: within
+    :data:`RESONANCE_WINDOW` (2 %) of ``band.target_mhz``.
+yield (``--tolerance``, ``--spec``)
+    Around the best design of the page: ``±0.1 mm`` (normal, 3 sigma) on every varied length in
+    mm, a common print tolerance of fused-filament printers (common practice); spec
+    ``resonance_mhz`` within 2 % of the target, when it is a target.
+sensitivity
+    Sobol' first-order and total indices of every target over the study's space.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import math
+import tempfile
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from studies.report.figures import Unavailable
+from sweeps.errors import ConfigError, FilamantError
+
+__all__ = ["NATURAL_GOALS", "RESONANCE_WINDOW", "PRINT_TOLERANCE_MM", "SurrogateQuestions",
+           "load_study_surrogate", "tradeoff_png", "sensitivity_png", "yield_png"]
+
+#: The direction in which a metric is better, for the default trade-off objectives.
+NATURAL_GOALS: dict[str, str] = {
+    "bandwidth_mhz": "max",
+    "fractional_bandwidth": "max",
+    "efficiency": "max",
+    "gain_dbi": "max",
+    "modulation_depth": "max",
+    "modulation_factor": "max",
+    "delta_rcs_dbsm": "max",
+    "read_range_m": "max",
+    "s11_db": "min",
+    "q_factor": "min",
+    "chu_ratio": "min",
+}
+
+#: Relative window around ``band.target_mhz`` for the default resonance constraint and spec.
+RESONANCE_WINDOW = 0.02
+
+#: The default print tolerance (±, mm) on every varied length in mm for the yield.
+PRINT_TOLERANCE_MM = 0.1
+
+
+@dataclass
+class SurrogateQuestions:
+    """What the report asks the surrogate; empty fields take the module's defaults.
+
+    Attributes
+    ----------
+    objectives : dict
+        Metric or parameter -> ``"max"`` / ``"min"``.
+    constraints : dict
+        Metric or parameter -> ``"lo:hi"``.
+    tolerances : dict
+        Parameter -> ``"±value"`` / ``"±percent%"``.
+    specs : dict
+        Metric -> ``"lo:hi"``.
+    """
+
+    objectives: dict[str, str] = field(default_factory=dict)
+    constraints: dict[str, str] = field(default_factory=dict)
+    tolerances: dict[str, str] = field(default_factory=dict)
+    specs: dict[str, str] = field(default_factory=dict)
+
+
+def _window(target_mhz: float) -> str:
+    return f"{target_mhz * (1 - RESONANCE_WINDOW):.6g}:{target_mhz * (1 + RESONANCE_WINDOW):.6g}"
+
+
+def load_study_surrogate(ctx: Any) -> Any:
+    """The fitted surrogate of the study of ``ctx``, checked against its config.
+
+    Raises
+    ------
+    Unavailable
+        No surrogates package in this version, no surrogate fitted yet, or a surrogate file
+        that is refused (trained on another config, damaged, tampered with).
+    """
+    if importlib.util.find_spec("surrogates.store") is None:
+        raise Unavailable("surrogate models are not available in this version of filamant")
+    from surrogates.store import load_surrogate, surrogate_path
+
+    source = ctx.study.source
+    path = surrogate_path(source, ctx.name)
+    if not Path(path).exists():
+        raise Unavailable(f"no surrogate fitted yet ({path} does not exist): run "
+                          f"filamant fit {source}")
+    try:
+        return load_surrogate(path, plan_fingerprint=ctx.plan_fingerprint)
+    except FilamantError as exc:
+        raise Unavailable(f"the surrogate is refused: {exc}") from None
+
+
+def _render(plot: Any, result: Any) -> bytes:
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "figure.png"
+        plot(result, path)
+        return path.read_bytes()
+
+
+def _ranges(items: Mapping[str, str], flag: str) -> dict[str, tuple[float, float]]:
+    from surrogates.specs import parse_range
+
+    return {k: parse_range(v, f"{flag} {k}") for k, v in items.items()}
+
+
+def default_objectives(sur: Any, study: Any) -> tuple[dict[str, str], dict[str, str]]:
+    """The trade-off objectives and constraints the report uses by default (module doc)."""
+    targets = list(sur.target_names)
+    constraints: dict[str, str] = {}
+    if getattr(study, "optimize", None) is not None:
+        objectives = {o.metric: o.goal for o in study.optimize.objectives
+                      if o.metric in targets}
+        for c in study.optimize.constraints:
+            if c.metric in targets:
+                lo = "" if c.min is None else f"{c.min:g}"
+                hi = "" if c.max is None else f"{c.max:g}"
+                constraints[c.metric] = f"{lo}:{hi}"
+        if objectives:
+            return objectives, constraints
+    objectives = {t: NATURAL_GOALS[t] for t in targets if t in NATURAL_GOALS}
+    if "resonance_mhz" in targets:
+        constraints["resonance_mhz"] = _window(study.band.target_mhz)
+    return objectives, constraints
+
+
+def tradeoff_png(sur: Any, study: Any, q: SurrogateQuestions, *, seed: int = 0
+                 ) -> tuple[bytes, dict, str]:
+    """The trade-off front: PNG bytes, data (front table, objectives, constraints), caption."""
+    from surrogates.tradeoff import plot_front, tradeoff
+
+    objectives, constraints = default_objectives(sur, study)
+    if q.objectives:
+        objectives = dict(q.objectives)
+    if q.constraints or q.objectives:
+        constraints = dict(q.constraints)
+    if not objectives:
+        raise Unavailable(f"no surrogate target has a natural direction to trade "
+                          f"({', '.join(sur.target_names)}): give --objective metric=max|min")
+    result = tradeoff(sur, objectives, constraints=_ranges(constraints, "--constraint"),
+                      seed=seed)
+    if not len(result.front):
+        raise Unavailable("; ".join(result.warnings) or "the front is empty")
+    goals = ", ".join(f"{g} {m}" for m, g in result.objectives.items())
+    cons = ", ".join(f"{m} in {lo:g}..{hi:g}" for m, (lo, hi) in result.constraints.items())
+    caption = (f"{len(result.front)} non-dominated designs of {result.n_candidates} "
+               f"surrogate candidates ({result.n_feasible} feasible); objectives: {goals}"
+               + (f"; constraints: {cons}" if cons else "") + ". Surrogate predictions: "
+               "confirm a chosen design with filamant evaluate.")
+    if result.warnings:
+        caption += " Warnings: " + "; ".join(result.warnings)
+    data = {"front": result.front, "objectives": result.objectives,
+            "constraints": result.constraints}
+    return _render(plot_front, result), data, caption
+
+
+def sensitivity_png(sur: Any, *, n: int = 2048, seed: int = 0) -> tuple[bytes, dict, str]:
+    """Sobol' indices of every target: PNG bytes, data (index tables), caption."""
+    from surrogates.sensitivity import plot_sensitivity, surrogate_sobol
+
+    indices = {t: surrogate_sobol(sur, t, n=n, seed=seed) for t in sur.target_names}
+    caption = ("Sobol' first-order (alone) and total (with interactions) indices of each "
+               "target's surrogate mean over the study's space (Saltelli et al., Comput. Phys. "
+               "Commun. 181, 2010): the share of the target's variance each parameter "
+               "explains. Bars show the bootstrap confidence intervals.")
+    return _render(lambda r, p: plot_sensitivity(r, p), indices), {"indices": indices}, caption
+
+
+def default_tolerances(sur: Any) -> dict[str, str]:
+    """``±0.1 mm`` on every surrogate feature that is a varied length in mm (a range)."""
+    return {f.name: f"±{PRINT_TOLERANCE_MM:g}" for f in sur.features
+            if f.name.endswith("_mm") and not f.discrete}
+
+
+def yield_png(sur: Any, study: Any, nominal: Mapping[str, Any], q: SurrogateQuestions, *,
+              seed: int = 0) -> tuple[bytes, dict, str]:
+    """Yield around ``nominal``: PNG bytes, data (the result's JSON), caption."""
+    from surrogates.specs import parse_tolerance
+    from surrogates.yield_ import plot_yield, yield_estimate
+
+    tol_text = dict(q.tolerances) or default_tolerances(sur)
+    if not tol_text:
+        raise Unavailable("no varied length in mm to put a print tolerance on: give "
+                          "--tolerance section.key=±value")
+    specs = dict(q.specs)
+    if not specs:
+        if "resonance_mhz" not in sur.target_names:
+            raise Unavailable("resonance_mhz is not a surrogate target, so there is no "
+                              "default spec: give --spec metric=lo:hi")
+        specs = {"resonance_mhz": _window(study.band.target_mhz)}
+    tolerances = [parse_tolerance(k, v) for k, v in tol_text.items()]
+    feats = set(sur.feature_names)
+    nominal = {k: v for k, v in nominal.items() if k in feats}
+    try:
+        result = yield_estimate(sur, nominal, tolerances, _ranges(specs, "--spec"), seed=seed)
+    except ConfigError as exc:
+        raise Unavailable(f"yield not computed: {exc}") from None
+    tol = ", ".join(f"{k} {v}" for k, v in tol_text.items())
+    spec = ", ".join(f"{m} in {lo:g}..{hi:g}" for m, (lo, hi) in result.specs.items())
+    worst = f"; fails most on {result.worst}" if result.worst else ""
+    share = (f"{result.share:.1%} of {result.n_draws} draws meet every spec "
+             f"({result.confidence:.0%} interval {result.ci_low:.1%} to {result.ci_high:.1%})")
+    caption = (f"Around the best design, tolerances {tol} (normal, ± = 3 sigma); specs {spec}: "
+               f"{share}{worst}. Through the surrogate.")
+    if result.warnings:
+        caption += " Warnings: " + "; ".join(result.warnings)
+    if not math.isfinite(result.share):
+        raise Unavailable("yield is not finite")
+    return _render(plot_yield, result), {"result": result.to_json()}, caption
+
+
+def parse_questions(objectives: Sequence[str], constraints: Sequence[str],
+                    tolerances: Sequence[str], specs: Sequence[str]) -> SurrogateQuestions:
+    """``name=value`` command-line items into :class:`SurrogateQuestions` (keys unique)."""
+    def pairs(items: Sequence[str], flag: str) -> dict[str, str]:
+        out: dict[str, str] = {}
+        for it in items:
+            k, sep, v = it.partition("=")
+            if not sep or not k.strip() or not v.strip():
+                raise ConfigError(f"{flag}: expected name=value, got {it!r}")
+            if k.strip() in out:
+                raise ConfigError(f"{flag}: {k.strip()} given twice")
+            out[k.strip()] = v.strip()
+        return out
+
+    return SurrogateQuestions(objectives=pairs(objectives, "--objective"),
+                              constraints=pairs(constraints, "--constraint"),
+                              tolerances=pairs(tolerances, "--tolerance"),
+                              specs=pairs(specs, "--spec"))
