@@ -122,6 +122,7 @@ class _Steps:
         self.target_mhz = float(ctx.study.band.target_mhz)
         self._surrogate: Any = None
         self._surrogate_error: str | None = None
+        self.surrogate_warnings: list[str] = []
 
     def _best(self) -> pd.Series:
         if self.selection.table.empty:
@@ -138,7 +139,7 @@ class _Steps:
 
         if self._surrogate is None and self._surrogate_error is None:
             try:
-                self._surrogate = load_study_surrogate(self.ctx)
+                self._surrogate, self.surrogate_warnings = load_study_surrogate(self.ctx)
             except Unavailable as exc:
                 self._surrogate_error = str(exc)
         if self._surrogate_error is not None:
@@ -207,21 +208,28 @@ class _Steps:
             text += "; no differential RCS (the design has no stored gain)"
         return fig, data, text + "."
 
+    def _noted(self, result: tuple[bytes, dict, str]) -> tuple[bytes, dict, str]:
+        png, data, caption = result
+        if self.surrogate_warnings:
+            caption += " Note: " + "; ".join(self.surrogate_warnings)
+        return png, data, caption
+
     def tradeoff(self) -> tuple[bytes, dict, str]:
         from studies.report.surrogate import tradeoff_png
 
-        return tradeoff_png(self.surrogate(), self.study, self.questions)
+        return self._noted(tradeoff_png(self.surrogate(), self.study, self.questions))
 
     def sensitivity(self) -> tuple[bytes, dict, str]:
         from studies.report.surrogate import sensitivity_png
 
-        return sensitivity_png(self.surrogate())
+        return self._noted(sensitivity_png(self.surrogate()))
 
     def yield_(self) -> tuple[bytes, dict, str]:
         from studies.report.surrogate import yield_png
 
         sur = self.surrogate()
-        return yield_png(sur, self.study, _params(self._best(), self.names), self.questions)
+        return self._noted(yield_png(sur, self.study, _params(self._best(), self.names),
+                                     self.questions))
 
     def steps(self) -> list[tuple[str, Callable[[], tuple[Any, dict, str]]]]:
         return [("s11", self.s11), ("smith", self.smith), ("impedance", self.impedance),

@@ -23,6 +23,7 @@ sensitivity
 from __future__ import annotations
 
 import importlib.util
+import logging
 import math
 import tempfile
 from collections.abc import Mapping, Sequence
@@ -35,6 +36,8 @@ from sweeps.errors import ConfigError, FilamantError
 
 __all__ = ["NATURAL_GOALS", "RESONANCE_WINDOW", "PRINT_TOLERANCE_MM", "SurrogateQuestions",
            "load_study_surrogate", "tradeoff_png", "sensitivity_png", "yield_png"]
+
+logger = logging.getLogger(__name__)
 
 #: The direction in which a metric is better, for the default trade-off objectives.
 NATURAL_GOALS: dict[str, str] = {
@@ -84,28 +87,27 @@ def _window(target_mhz: float) -> str:
     return f"{target_mhz * (1 - RESONANCE_WINDOW):.6g}:{target_mhz * (1 + RESONANCE_WINDOW):.6g}"
 
 
-def load_study_surrogate(ctx: Any) -> Any:
-    """The fitted surrogate of the study of ``ctx``, checked against its config.
+def load_study_surrogate(ctx: Any) -> tuple[Any, list[str]]:
+    """The fitted surrogate of the study of ``ctx``, checked against its config, and warnings
+    (the study has changed since the fit).
 
     Raises
     ------
     Unavailable
-        No surrogates package in this version, no surrogate fitted yet, or a surrogate file
-        that is refused (trained on another config, damaged, tampered with).
+        No surrogates in this version, no surrogate fitted yet, or a surrogate file that is
+        refused (trained on another config, damaged, tampered with).
     """
-    if importlib.util.find_spec("surrogates.store") is None:
+    if importlib.util.find_spec("studies.surrogate_api") is None:
         raise Unavailable("surrogate models are not available in this version of filamant")
-    from surrogates.store import load_surrogate, surrogate_path
+    from studies.surrogate_api import load_study_surrogate as load
 
-    source = ctx.study.source
-    path = surrogate_path(source, ctx.name)
-    if not Path(path).exists():
-        raise Unavailable(f"no surrogate fitted yet ({path} does not exist): run "
-                          f"filamant fit {source}")
     try:
-        return load_surrogate(path, plan_fingerprint=ctx.plan_fingerprint)
-    except FilamantError as exc:
-        raise Unavailable(f"the surrogate is refused: {exc}") from None
+        sur, _path, warnings = load(ctx)
+    except FilamantError as exc:  # missing (StoreError), or refused (ConfigError, StoreError)
+        raise Unavailable(str(exc)) from None
+    for w in warnings:
+        logger.warning("report: %s", w)
+    return sur, list(warnings)
 
 
 def _render(plot: Any, result: Any) -> bytes:
