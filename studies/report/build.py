@@ -222,7 +222,9 @@ class _Steps:
     def sensitivity(self) -> tuple[bytes, dict, str]:
         from studies.report.surrogate import sensitivity_png
 
-        return self._noted(sensitivity_png(self.surrogate()))
+        sur = self.surrogate()
+        best = None if self.selection.table.empty else _params(self._best(), self.names)
+        return self._noted(sensitivity_png(sur, best))
 
     def yield_(self) -> tuple[bytes, dict, str]:
         from studies.report.surrogate import yield_png

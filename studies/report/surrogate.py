@@ -173,16 +173,33 @@ def tradeoff_png(sur: Any, study: Any, q: SurrogateQuestions, *, seed: int = 0
     return _render(plot_front, result), data, caption
 
 
-def sensitivity_png(sur: Any, *, n: int = 2048, seed: int = 0) -> tuple[bytes, dict, str]:
-    """Sobol' indices of every target: PNG bytes, data (index tables), caption."""
+def sensitivity_png(sur: Any, best: Mapping[str, Any] | None = None, *, n: int = 2048,
+                    seed: int = 0) -> tuple[bytes, dict, str]:
+    """Sobol' indices of every target: PNG bytes, data (index tables), caption.
+
+    The choice parameters (a filament, a contact) are held at the best design's values, so the
+    indices rank the continuous parameters for the design the page recommends; a choice
+    between very different filaments would otherwise swamp every other parameter (and stand
+    for metrics, like a resonance, that the other filament may not have at all).
+    """
     from surrogates.sensitivity import plot_sensitivity, surrogate_sobol
 
-    indices = {t: surrogate_sobol(sur, t, n=n, seed=seed) for t in sur.target_names}
+    fixed = {f.name: best[f.name] for f in sur.features
+             if f.discrete and best is not None and f.name in best}
+    free = [f.name for f in sur.features if f.name not in fixed]
+    if not free:
+        raise Unavailable("every parameter of the surrogate is a choice: no continuous "
+                          "parameter to rank")
+    indices = {t: surrogate_sobol(sur, t, fixed=fixed, n=n, seed=seed)
+               for t in sur.target_names}
+    held = ", ".join(f"{k} = {v:g}" if isinstance(v, int | float) else f"{k} = {v}"
+                     for k, v in fixed.items())
     caption = ("Sobol' first-order (alone) and total (with interactions) indices of each "
-               "target's surrogate mean over the study's space (Saltelli et al., Comput. Phys. "
+               "target's surrogate mean over the study's ranges (Saltelli et al., Comput. Phys. "
                "Commun. 181, 2010): the share of the target's variance each parameter "
-               "explains. Bars show the bootstrap confidence intervals.")
-    return _render(lambda r, p: plot_sensitivity(r, p), indices), {"indices": indices}, caption
+               "explains; bars show the bootstrap confidence intervals."
+               + (f" Choices held at the best design's: {held}." if held else ""))
+    return _render(plot_sensitivity, indices), {"indices": indices, "fixed": fixed}, caption
 
 
 def default_tolerances(sur: Any) -> dict[str, str]:
