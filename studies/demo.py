@@ -29,7 +29,10 @@ __all__ = ["EXAMPLES", "FILES", "steps", "available_steps", "main"]
 EXAMPLES = Path(__file__).resolve().parent / "examples"
 FILES = ("drawer_tag.toml", "drawer_study.toml")
 
-#: The design the demo asks about: a metal-filled trace with a good contact.
+#: The design the demo asks about: a metal-filled trace with a good contact. The forward ``ask``
+#: predicts where the nominal 150 mm resonates, the inverse one the length that puts the
+#: resonance at 915 MHz (about 152.6 mm), and ``yield`` checks that length against the US
+#: 902-928 MHz band and a differential RCS floor under print tolerances.
 _DESIGN = ["--set", "antenna.width_mm=3", "--set", "antenna.conductivity_s_per_m=3e4",
            "--set", "switch.closed.r_ohm=10"]
 
@@ -50,9 +53,10 @@ def steps(out: Path) -> list[list[str]]:
         ["tradeoff", study, "--objective", "efficiency=max", "--objective",
          "delta_rcs_dbsm=max", "--constraint", "resonance_mhz=902:928",
          "--out", str(out / "tradeoff.csv")],
-        ["yield", study, "--set", "antenna.length_mm=150", *_DESIGN,
-         "--tolerance", "antenna.length_mm=±0.1", "--tolerance", "antenna.width_mm=±0.1",
-         "--spec", "resonance_mhz=897:933"],
+        ["yield", study, "--set", "antenna.length_mm=152.6", *_DESIGN,
+         "--tolerance", "antenna.length_mm=±0.3", "--tolerance", "antenna.width_mm=±0.2",
+         "--spec", "resonance_mhz=902:928", "--spec", "delta_rcs_dbsm=-13:",
+         "--plot", str(out / "yield.png")],
         ["export", study, "--table", str(out / "drawer_study.csv"),
          "--touchstone", str(out / "touchstone")],
         ["report", study, "--out", str(out / "drawer_study-report")],
