@@ -249,6 +249,8 @@ def _draw(key: str, step: Callable[[], tuple[Any, dict, str]]) -> FigureEntry:
         entry.reason = str(exc)
         logger.info("report: %s not shown: %s", key, exc)
         return entry
+    except ConfigError:  # bad input (a --objective, --spec ... of the user): exit 2
+        raise
     except FilamantError as exc:  # e.g. the solver refuses the best design's geometry
         entry.reason = f"could not be computed: {exc}"
         logger.warning("report: %s: %s", key, exc)
@@ -320,7 +322,8 @@ def build_report(ctx: Any, out_dir: str | os.PathLike[str] | None = None, *, bes
     StoreError
         If the study has not been run.
     ConfigError
-        If the output folder cannot be written.
+        If a question is invalid (an unknown metric in ``questions``) or the output folder
+        cannot be written; nothing is written then.
     """
     from tqdm import tqdm
 

@@ -230,7 +230,9 @@ def yield_png(sur: Any, study: Any, nominal: Mapping[str, Any], q: SurrogateQues
     try:
         result = yield_estimate(sur, nominal, tolerances, _ranges(specs, "--spec"), seed=seed)
     except ConfigError as exc:
-        raise Unavailable(f"yield not computed: {exc}") from None
+        if q.tolerances or q.specs:  # the user's question: bad input
+            raise
+        raise Unavailable(f"yield not computed with the default question: {exc}") from None
     tol = ", ".join(f"{k} {v}" for k, v in tol_text.items())
     spec = ", ".join(f"{m} in {lo:g}..{hi:g}" for m, (lo, hi) in result.specs.items())
     worst = f"; fails most on {result.worst}" if result.worst else ""
