@@ -42,7 +42,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--best", type=_count, default=3, metavar="N",
                         help="how many best designs to show (default 3)")
     parser.add_argument("--objective", action="append", default=[], metavar="METRIC=max|min",
-                        help="trade-off objective (repeatable; default: see the page)")
+                        help="trade-off objective (repeatable; default: each surrogate target "
+                             "in its better direction, resonance_mhz as a constraint)")
     parser.add_argument("--constraint", action="append", default=[], metavar="METRIC=LO:HI",
                         help="trade-off constraint (repeatable)")
     parser.add_argument("--tolerance", action="append", default=[],
