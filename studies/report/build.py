@@ -170,10 +170,13 @@ class _Steps:
         stored = row.get("gain_dbi")
         note = "" if stored is None or pd.isna(stored) else \
             f" The study stored gain_dbi = {float(stored):.2f} dBi for this design."
+        where = ("the cuts are the principal planes of the coordinates of [antenna] wires"
+                 if self.study.antenna.shape == "wires" else
+                 "the trace lies along x in the xy plane, so for a dipole the yz plane is the "
+                 "H-plane")
         return fig, data, ("Gain of the best design in the three principal planes at the "
-                           "target, from one solver evaluation (IEEE gain, filament loss "
-                           "included); the trace lies along x in the xy plane, so for a "
-                           "dipole the yz plane is the H-plane." + note)
+                           "target, from one solver evaluation of its parameters (IEEE gain, "
+                           f"filament loss included); {where}." + note)
 
     def efficiency_conductivity(self) -> tuple[Any, dict, str]:
         from studies.report.conductivity import efficiency_figure
