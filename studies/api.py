@@ -245,13 +245,15 @@ def status_of(ctx: StudyContext) -> dict[str, Any]:
     return out
 
 
-def study_table(path: PathLike, overrides: Sequence[str] = ()) -> pd.DataFrame:
+def study_table(path: PathLike, overrides: Sequence[str] = (), *, done_only: bool = False
+                ) -> pd.DataFrame:
     """The study of ``path`` as a table; see :func:`table_of`."""
-    return table_of(load_context(path, overrides))
+    return table_of(load_context(path, overrides), done_only=done_only)
 
 
-def table_of(ctx: StudyContext) -> pd.DataFrame:
-    """One row per point of the study, in plan order.
+def table_of(ctx: StudyContext, *, done_only: bool = False) -> pd.DataFrame:
+    """One row per point of the study (only the evaluated ones with ``done_only``), in plan
+    order.
 
     Columns: ``point_id``; the parameters by dotted name (config units); one column per metric
     (``sweeps.metrics.METRIC_NAMES`` order, NaN where the metric is missing or the point is not
@@ -268,6 +270,8 @@ def table_of(ctx: StudyContext) -> pd.DataFrame:
             raise StoreError(f"{store.display_url}: no study {ctx.name!r} yet; run it first "
                              "(filamant run)")
         rows = store.results(ctx.name)
+    if done_only:
+        rows = [r for r in rows if r["status"] == "done"]
     names = list(ctx.space.names)
     for r in rows:  # points whose parameters are not in [space] (should not happen)
         names += [k for k in r["params"] if k not in names]
