@@ -342,7 +342,18 @@ def build_report(ctx: Any, out_dir: str | os.PathLike[str] | None = None, *, bes
         raise ConfigError(f"--out {out}: exists and is not a folder")
     selection = best_designs(table, count=best, optimize=ctx.study.optimize)
     responses = _responses(ctx, selection)
-    steps = _Steps(ctx, table, selection, responses, questions or SurrogateQuestions()).steps()
+    questions = questions or SurrogateQuestions()
+    runner = _Steps(ctx, table, selection, responses, questions)
+    if any(vars(questions).values()):  # a bad question fails now, before any figure is drawn
+        from studies.report.surrogate import check_questions
+
+        try:
+            sur = runner.surrogate()
+        except Unavailable:
+            pass  # no surrogate: the surrogate figures say why, the questions do not matter
+        else:
+            check_questions(sur, questions)
+    steps = runner.steps()
     show = sys.stderr.isatty() if progress is None else progress
     figures = []
     with tqdm(steps, desc="report", unit="figure", file=sys.stderr, disable=not show,

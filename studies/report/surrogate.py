@@ -247,6 +247,38 @@ def yield_png(sur: Any, study: Any, nominal: Mapping[str, Any], q: SurrogateQues
     return _render(plot_yield, result), {"result": result.to_json()}, caption
 
 
+def check_questions(sur: Any, q: SurrogateQuestions) -> None:
+    """Refuse a question naming something the surrogate does not know, before any work.
+
+    Objectives and constraints may name a target or a parameter; specs a target; tolerances a
+    parameter. Goals, ranges and tolerances are parsed here too.
+
+    Raises
+    ------
+    ConfigError
+        Naming the option, the name and the closest valid one.
+    """
+    from studies.tomlfile import suggest
+    from surrogates.specs import parse_goal, parse_range, parse_tolerance
+
+    targets, feats = list(sur.target_names), list(sur.feature_names)
+    for flag, items, known in (("--objective", q.objectives, targets + feats),
+                               ("--constraint", q.constraints, targets + feats),
+                               ("--spec", q.specs, targets), ("--tolerance", q.tolerances, feats)):
+        for name in items:
+            if name not in known:
+                what = {"--spec": "a surrogate target", "--tolerance": "a parameter"}.get(
+                    flag, "a surrogate target or a parameter")
+                raise ConfigError(f"{flag} {name}: not {what}" + suggest(name, known))
+    for k, v in q.objectives.items():
+        parse_goal(v, f"--objective {k}")
+    for flag, items in (("--constraint", q.constraints), ("--spec", q.specs)):
+        for k, v in items.items():
+            parse_range(v, f"{flag} {k}")
+    for k, v in q.tolerances.items():
+        parse_tolerance(k, v)
+
+
 def parse_questions(objectives: Sequence[str], constraints: Sequence[str],
                     tolerances: Sequence[str], specs: Sequence[str]) -> SurrogateQuestions:
     """``name=value`` command-line items into :class:`SurrogateQuestions` (keys unique)."""

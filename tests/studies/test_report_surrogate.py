@@ -110,8 +110,8 @@ def test_questions_override_the_defaults(fitted, tmp_path):
 
 def test_report_verb_passes_the_questions(fitted, tmp_path, capsys):
     out = tmp_path / "cli"
-    code = main(["report", str(fitted), "--out", str(out), "--objective", "efficiency=max",
-                 "--objective", "antenna.length_mm=min", "--json"])
+    code = main(["report", str(fitted), "--out", str(out), "--best", "1", "--objective",
+                 "efficiency=max", "--objective", "antenna.length_mm=min", "--json"])
     text, err = capsys.readouterr()
     assert code == 0, err
     assert '"missing": {}' in text
@@ -120,5 +120,14 @@ def test_report_verb_passes_the_questions(fitted, tmp_path, capsys):
     _, err = capsys.readouterr()
     assert code == 2  # bad input: one line, and the earlier report is left as it was
     assert err.startswith("filamant: error: ") and err.count("\n") == 1
-    assert "'nonsense'" in err
+    assert "--objective nonsense: not a surrogate target or a parameter" in err
     assert (out / "report.html").read_bytes() == before
+    for argv, needle in ((["--spec", "antenna.length_mm=140:150"], "--spec antenna.length_mm: "
+                                                                   "not a surrogate target"),
+                         (["--tolerance", "efficiency=±1"], "--tolerance efficiency: not a "
+                                                            "parameter"),
+                         (["--constraint", "efficency=0.5:"], "did you mean efficiency?"),
+                         (["--objective", "efficiency=most"], "goal must be max or min")):
+        code = main(["report", str(fitted), "--out", str(out), *argv])
+        _, err = capsys.readouterr()
+        assert code == 2 and needle in err and err.count("\n") == 1, (argv, err)
