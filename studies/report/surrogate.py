@@ -166,6 +166,10 @@ def tradeoff_png(sur: Any, study: Any, q: SurrogateQuestions, *, seed: int = 0
                f"surrogate candidates ({result.n_feasible} feasible); objectives: {goals}"
                + (f"; constraints: {cons}" if cons else "") + ". Surrogate predictions: "
                "confirm a chosen design with filamant evaluate.")
+    if len(result.front) == 1 and len(result.objectives) > 1:
+        caption += (" One design is best in every objective: these objectives do not conflict "
+                    "in this study. Ask for another pair, for example --objective "
+                    "delta_rcs_dbsm=max --objective antenna.width_mm=min (less filament).")
     if result.warnings:
         caption += " Warnings: " + "; ".join(result.warnings)
     data = {"front": result.front, "objectives": result.objectives,
