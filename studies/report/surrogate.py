@@ -286,18 +286,9 @@ def check_questions(sur: Any, q: SurrogateQuestions) -> None:
 def parse_questions(objectives: Sequence[str], constraints: Sequence[str],
                     tolerances: Sequence[str], specs: Sequence[str]) -> SurrogateQuestions:
     """``name=value`` command-line items into :class:`SurrogateQuestions` (keys unique)."""
-    def pairs(items: Sequence[str], flag: str) -> dict[str, str]:
-        out: dict[str, str] = {}
-        for it in items:
-            k, sep, v = it.partition("=")
-            if not sep or not k.strip() or not v.strip():
-                raise ConfigError(f"{flag}: expected name=value, got {it!r}")
-            if k.strip() in out:
-                raise ConfigError(f"{flag}: {k.strip()} given twice")
-            out[k.strip()] = v.strip()
-        return out
+    from surrogates.specs import parse_assignments
 
-    return SurrogateQuestions(objectives=pairs(objectives, "--objective"),
-                              constraints=pairs(constraints, "--constraint"),
-                              tolerances=pairs(tolerances, "--tolerance"),
-                              specs=pairs(specs, "--spec"))
+    return SurrogateQuestions(objectives=parse_assignments(objectives, "--objective"),
+                              constraints=parse_assignments(constraints, "--constraint"),
+                              tolerances=parse_assignments(tolerances, "--tolerance"),
+                              specs=parse_assignments(specs, "--spec"))

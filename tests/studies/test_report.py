@@ -304,7 +304,7 @@ def test_report_verb_and_its_refusals(study, tmp_path, capsys):
     for argv, needle in (
         (["report", str(study), "--out", str(afile)], "exists and is not a folder"),
         (["report", str(tmp_path / "nope.toml")], "nope.toml: no such file"),
-        (["report", str(study), "--spec", "resonance_mhz"], "--spec: expected name=value"),
+        (["report", str(study), "--spec", "resonance_mhz"], "--spec: expected key=value"),
     ):
         code = main(argv)
         _, err = capsys.readouterr()
