@@ -118,9 +118,10 @@ def test_sigkill_and_resume_matches_uninterrupted(tmp_path):
 
 
 def test_ctrl_c_saves_releases_and_refuses_a_second_run(tmp_path):
-    # a slower design (41 frequencies) so the run is still going while we poke it
-    cfg = write_study(tmp_path, points=160, workers=2)
-    cfg.write_text(cfg.read_text().replace("points = 11", "points = 41"))
+    # A study far too long to finish while we poke it (the second `run` alone takes seconds to
+    # start), whatever the speed of the machine; after Ctrl-C the rest is resumed.
+    total = 1024
+    cfg = write_study(tmp_path, points=total, workers=2)
     proc = _start(cfg)
     try:
         _wait_done(cfg, 4, proc)
@@ -140,6 +141,6 @@ def test_ctrl_c_saves_releases_and_refuses_a_second_run(tmp_path):
     with Store(load_context(cfg).store_url, create=False) as store:
         counts = store.counts("drawer")
         assert lease_info(store, "drawer") is None  # released
-    assert 0 < counts["done"] < 160 and counts["failed"] == 0
+    assert 0 < counts["done"] < total and counts["failed"] == 0
     resumed = run_study(cfg, progress=False)
-    assert resumed.evaluated == 160 - counts["done"] and resumed.done == 160
+    assert resumed.evaluated == total - counts["done"] and resumed.done == total
