@@ -7,6 +7,7 @@ scikit-rf (a reference library) and the report page is parsed with ``html.parser
 from __future__ import annotations
 
 import importlib.util
+import tomllib
 
 import pandas as pd
 import pytest
@@ -50,11 +51,13 @@ def test_demo_end_to_end(tmp_path, capsys):
     assert len(table) == 32 and (table["status"] == "done").all()
     files = sorted((out / "touchstone").glob("*.s1p"))
     assert len(files) == 32
+    band = tomllib.loads((out / "drawer_study.toml").read_text())["band"]
     net = skrf.Network(str(files[0]))
-    assert net.nports == 1 and len(net.f) == 41
-    assert net.f[0] == pytest.approx(800e6) and net.f[-1] == pytest.approx(1000e6)
+    assert net.nports == 1 and len(net.f) == band["points"]
+    assert net.f[0] == pytest.approx(band["start_mhz"] * 1e6)
+    assert net.f[-1] == pytest.approx(band["stop_mhz"] * 1e6)
     single = skrf.Network(str(out / "drawer_tag.s1p"))
-    assert len(single.f) == 41
+    assert len(single.f) == tomllib.loads((out / "drawer_tag.toml").read_text())["band"]["points"]
     page = parse_page(out / "drawer_study-report" / "report.html")
     _, left_out = demo.available_steps(out)
     surrogate_figures = {"tradeoff", "sensitivity", "yield"}

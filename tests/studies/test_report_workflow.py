@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import base64
 import importlib.util
+import re
 
 from studies.cli import main, verb_module_name
 from tests.studies.test_report import parse_page, png_size
@@ -26,13 +27,13 @@ def _small(text: str) -> str:
     """Edit the starter study as a user would: fewer points, a coarser band, one worker, and
     two surrogate targets that every point has (the carbon-filled half of the designs has no
     resonance in band), fitted by a Gaussian process."""
-    for old, new in (("points = 32 ", "points = 16 "), ("points = 41 ", "points = 15 "),
-                     ("workers = 2 ", "workers = 1 "),
-                     ('targets = ["resonance_mhz", "efficiency", "delta_rcs_dbsm"]',
-                      'targets = ["efficiency", "delta_rcs_dbsm"]'),
-                     ('model = "auto"', 'model = "gp"')):
-        assert old in text, old
-        text = text.replace(old, new, 1)
+    for pattern, new in ((r"(?m)^points = \d+(?=\s+# frequencies)", "points = 15"),
+                         (r"(?m)^points = \d+(?=\s+# a power of two)", "points = 16"),
+                         (r"(?m)^workers = \d+", "workers = 1"),
+                         (r"(?m)^targets = \[.*\]", 'targets = ["efficiency", "delta_rcs_dbsm"]'),
+                         (r'(?m)^model = "auto"', 'model = "gp"')):
+        text, n = re.subn(pattern, new, text, count=1)
+        assert n == 1, pattern
     return text
 
 
