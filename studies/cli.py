@@ -33,7 +33,7 @@ VERBS: dict[str, str] = {
     "ask": "instant what-if answers from a fitted surrogate",
     "tradeoff": "trade-off fronts between metrics",
     "yield": "yield of a design under print tolerances",
-    "report": "a report of a study",
+    "report": "an HTML report of a study: best designs, plots, trade-off, yield, cautions",
     "bench": "run the performance benchmarks",
     "init": "write a commented example design or study to start from",
 }
