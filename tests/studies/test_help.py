@@ -124,9 +124,6 @@ def test_init_into_a_file_is_one_error_line(tmp_path, capsys):
     target.write_text("not a folder")
     code = main(["init", str(target)])
     _, err = capsys.readouterr()
-    if code == 1:
-        pytest.xfail("init: DIR naming an existing file raises FileExistsError (exit 1); "
-                     "studies/verbs/init.py should raise ConfigError (reported to the lead)")
     assert code == 2
     assert str(target) in _one_error_line(err)
 
