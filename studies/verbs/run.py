@@ -65,9 +65,11 @@ def run(args: argparse.Namespace) -> int:
 
     ctx = load_context(args.study, args.set)
 
+    what = "trial(s) to complete" if ctx.method == "optimize" else "point(s) to evaluate"
+
     def started(url: str, todo: int, total: int) -> None:
         sys.stderr.write(f"filamant: study {ctx.name}: store {url} ({todo} of {total} "
-                         "point(s) to evaluate)\n")
+                         f"{what})\n")
         sys.stderr.flush()
 
     with _sigterm_as_interrupt():
@@ -79,6 +81,12 @@ def run(args: argparse.Namespace) -> int:
         out = sys.stdout
         out.write(f"study {s.study}: {s.total} point(s) in {s.store}\n")
         out.write(f"  done {s.done}, failed {s.failed}, still planned {s.planned}\n")
+        if s.trials is not None:
+            t = s.trials
+            out.write(f"  trials: {t['complete']} of {t['target']} complete, {t['pruned']} "
+                      f"pruned, {t['failed']} failed\n")
+            if t.get("stopped"):
+                out.write(f"  stopped early: {t['stopped']}\n")
         if s.evaluated:
             per = f", {s.seconds_per_point:.3g} s per point" if s.seconds_per_point else ""
             out.write(f"  this run: {s.evaluated} evaluated in {s.elapsed_s:.1f} s on "
