@@ -29,7 +29,7 @@ from studies.store import METRIC_COLUMNS, Store, describe_changes
 from sweeps.errors import StoreError
 
 __all__ = ["RunSummary", "load_context", "open_study", "run_study", "run_context",
-           "study_status", "status_of", "study_table", "table_of"]
+           "study_status", "status_of", "study_table", "table_of", "lease_options"]
 
 logger = logging.getLogger(__name__)
 
@@ -138,11 +138,7 @@ def run_context(ctx: StudyContext, *, fresh: bool = False, progress: bool | None
                             heartbeat_s=heartbeat_s, stale_after_s=stale_after_s,
                             on_start=on_start, **opts)
     t0 = time.perf_counter()
-    lease_kw: dict[str, float] = {}
-    if heartbeat_s is not None:
-        lease_kw["heartbeat_s"] = heartbeat_s
-    if stale_after_s is not None:
-        lease_kw["stale_after_s"] = stale_after_s
+    lease_kw = lease_options(heartbeat_s, stale_after_s)
     with Store(ctx.store_url) as store:
         metrics_fp = _metrics_fingerprint(ctx)
         if not fresh:  # refuse a changed config before writing anything
@@ -172,6 +168,13 @@ def run_context(ctx: StudyContext, *, fresh: bool = False, progress: bool | None
         seconds_per_point=stats.seconds_per_point if stats else None,
         workers=stats.workers if stats else 0,
     )
+
+
+def lease_options(heartbeat_s: float | None, stale_after_s: float | None
+                  ) -> dict[str, float]:
+    """Keyword arguments of :meth:`Lease.acquire` for the timings given (``None``: default)."""
+    opts = {"heartbeat_s": heartbeat_s, "stale_after_s": stale_after_s}
+    return {k: v for k, v in opts.items() if v is not None}
 
 
 def open_study(store: Store, ctx: StudyContext, lease: Lease, *, fresh: bool = False

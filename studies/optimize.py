@@ -74,18 +74,18 @@ import uuid
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
-from studies.api import RunSummary, open_study
+from studies.api import RunSummary, lease_options, open_study
 from studies.context import StudyContext
 from studies.lease import Lease
 from studies.pareto import Goals, pareto_front
 from studies.points import Point, Record, canonical_value
 from studies.runner import ClusterError, Task, evaluate_batch, open_client
 from studies.space import Space
-from studies.store import METRIC_COLUMNS, Store
+from studies.store import METRIC_COLUMNS, Store, display_url
 from sweeps.errors import ConfigError, FilamantError, StoreError
 
 __all__ = ["distributions", "make_sampler", "open_storage", "run_optimize", "optimize_status",
@@ -161,32 +161,22 @@ def make_sampler(algorithm: str, trials: int, seed: int) -> tuple[Any, str]:
 
 
 def _immediate_transactions(engine: Any) -> None:
-    """Make every transaction of optuna's SQLite engine a writer from its start (``BEGIN
-    IMMEDIATE``), with WAL and a 30 s busy timeout, as the filamant store does: its
-    read-then-write transactions then wait for the lease heartbeat instead of failing on a
-    lock upgrade."""
-    from sqlalchemy import event
+    """Give optuna's SQLite engine the filamant store's settings (WAL, foreign keys, a 30 s busy
+    timeout: :func:`studies.store._sqlite_setup`) with every transaction a writer from its start
+    (``BEGIN IMMEDIATE``): its read-then-write transactions then wait for the lease heartbeat
+    instead of failing on a lock upgrade."""
+    from studies.store import _sqlite_setup
 
-    @event.listens_for(engine, "connect")
-    def _connect(dbapi_conn: Any, _record: Any) -> None:
-        dbapi_conn.isolation_level = None
-        cur = dbapi_conn.cursor()
-        cur.execute("PRAGMA journal_mode=WAL")
-        cur.execute("PRAGMA synchronous=NORMAL")
-        cur.execute("PRAGMA busy_timeout=30000")
-        cur.close()
-
-    @event.listens_for(engine, "begin")
-    def _begin(conn: Any) -> None:
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
-
+    _sqlite_setup(engine)
+    engine.update_execution_options(filamant_write=True)  # BEGIN IMMEDIATE for all
     engine.dispose()  # connections made from now on get the settings
 
 
 def open_storage(url: str, *, create: bool = True) -> Any:
-    """``optuna.storages.RDBStorage`` on the study's database.
+    """``optuna.storages.RDBStorage`` on the study's database (dispose its ``engine`` after).
 
-    With ``create=False`` optuna's tables are not created (``status``, ``export``).
+    ``create=True`` (the run) creates optuna's tables if missing and, on SQLite, makes every
+    transaction a writer from its start; ``create=False`` (``status``, ``export``) only reads.
     """
     from optuna.storages import RDBStorage
     from sqlalchemy.engine import make_url
@@ -198,9 +188,8 @@ def open_storage(url: str, *, create: bool = True) -> Any:
         storage = RDBStorage(url, engine_kwargs=kw, skip_table_creation=not create)
     except Exception as exc:  # optuna wraps driver and schema errors in several types
         raise StoreError(f"study.store: cannot open the optimization trials in "
-                         f"{make_url(url).render_as_string(hide_password=True)}: {exc}"
-                         ) from None
-    if sqlite:
+                         f"{display_url(url)}: {exc}") from None
+    if sqlite and create:
         _immediate_transactions(storage.engine)
     return storage
 
@@ -238,7 +227,7 @@ def _derived_seed(seed: int, n_before: int) -> int:
 class _Outcome:
     """What a point's result means for a trial."""
 
-    state: str  # "complete" | "pruned" | "fail"
+    state: Literal["complete", "pruned", "fail"]
     values: list[float] | None = None
     constraints: dict[str, float] = field(default_factory=dict)
     reason: str = ""
@@ -557,9 +546,6 @@ def run_optimize(ctx: StudyContext, *, fresh: bool = False, progress: bool | Non
     ConfigError, StoreError
         As :func:`studies.api.run_study`.
     """
-    import optuna
-    from tqdm import tqdm
-
     if ctx.method != "optimize" or getattr(ctx.study, "optimize", None) is None:
         raise ConfigError(f"study {ctx.name!r}: not an optimization study (sampler.method = "
                           f"\"{ctx.method}\")")
@@ -567,65 +553,27 @@ def run_optimize(ctx: StudyContext, *, fresh: bool = False, progress: bool | Non
     goals = Goals.from_section(section)
     target = int(section.trials)
     t0 = time.perf_counter()
-    lease_kw: dict[str, float] = {}
-    if heartbeat_s is not None:
-        lease_kw["heartbeat_s"] = heartbeat_s
-    if stale_after_s is not None:
-        lease_kw["stale_after_s"] = stale_after_s
-    interrupted = False
     with Store(ctx.store_url) as store, _quiet_optuna():
-        metrics_fp = ctx.study.metrics_fingerprint()
         if not fresh:  # refuse a changed config before writing anything
             store.check_compatible(ctx.name, ctx.canonical, ctx.plan_fingerprint,
-                                   ctx.solver_fingerprint, metrics_fp)
-        with Lease.acquire(store, ctx.name, command="run", **lease_kw) as lease:
+                                   ctx.solver_fingerprint, ctx.study.metrics_fingerprint())
+        with Lease.acquire(store, ctx.name, command="run",
+                           **lease_options(heartbeat_s, stale_after_s)) as lease:
             created, deleted = open_study(store, ctx, lease, fresh=fresh)
             storage = open_storage(ctx.store_url)
-            sid = _study_id(storage, ctx.name)
-            if created and sid is not None:  # trials of a deleted incarnation of the study
-                logger.warning("study %r: deleting the optuna trials left from an earlier "
-                               "study of this name", ctx.name)
-                optuna.delete_study(study_name=ctx.name, storage=storage)
-                sid = None
-            n_before = 0 if sid is None else len(storage.get_all_trials(sid, deepcopy=False))
-            sampler, described = make_sampler(section.algorithm, target,
-                                              _derived_seed(ctx.seed, n_before))
-            study = optuna.create_study(storage=storage, study_name=ctx.name, sampler=sampler,
-                                        directions=goals.directions, load_if_exists=True)
-            study.set_user_attr(_ATTR_ALGORITHM, section.algorithm)
-            study.set_user_attr(_ATTR_SAMPLER, described)
-            opt = _Optimizer(ctx, store, lease, storage, study, goals, target, task=task,
-                             max_attempts=max_attempts)
-            opt.load()
-            opt.recover()
-            if on_start is not None:
-                on_start(store.display_url, max(0, target - opt.complete), target)
-            opt.bar = tqdm(total=target, initial=min(opt.complete, target), unit="trial",
-                           file=sys.stderr, desc=ctx.name, dynamic_ncols=True, smoothing=0.1,
-                           disable=(not sys.stderr.isatty()) if progress is None
-                           else not progress)
             try:
-                if opt.complete < target:
-                    from distributed import as_completed
-
-                    logger.info("study %r: %d of %d trial(s) to complete with %s on %s",
-                                ctx.name, target - opt.complete, target, described,
-                                ctx.cluster.describe())
-                    with open_client(ctx.cluster) as client:
-                        opt.client, opt.ac = client, as_completed()
-                        try:
-                            opt.loop()
-                        except KeyboardInterrupt:
-                            interrupted = True
-                            logger.warning("interrupted: storing finished evaluations, "
-                                           "cancelling the rest")
-                            opt.interrupted()
-                        except BaseException:
-                            opt.cancel()
-                            raise
+                study, described = _open_trials(ctx, storage, created, section.algorithm,
+                                                goals, target)
+                opt = _Optimizer(ctx, store, lease, storage, study, goals, target, task=task,
+                                 max_attempts=max_attempts)
+                opt.load()
+                opt.recover()
+                if on_start is not None:
+                    on_start(store.display_url, max(0, target - opt.complete), target)
+                interrupted = _drive(opt, progress, described)
+                trials = _trial_counts(study)
             finally:
-                opt.bar.close()
-            trials = _trial_counts(study)
+                storage.engine.dispose()
             counts = store.counts(ctx.name)
     trials.update(target=target, asked=opt.asked, stopped=opt.stop_reason)
     return RunSummary(
@@ -636,6 +584,57 @@ def run_optimize(ctx: StudyContext, *, fresh: bool = False, progress: bool | Non
         seconds_per_point=float(np.median(opt.times)) if opt.times else None,
         workers=opt.workers, trials=trials,
     )
+
+
+def _open_trials(ctx: StudyContext, storage: Any, created: bool, algorithm: str, goals: Goals,
+                 target: int) -> tuple[Any, str]:
+    """The optuna study of ``ctx`` with its sampler (seeded from the trials so far)."""
+    import optuna
+
+    sid = _study_id(storage, ctx.name)
+    if created and sid is not None:  # trials of a deleted incarnation of the study
+        logger.warning("study %r: deleting the optuna trials left from an earlier study of "
+                       "this name", ctx.name)
+        optuna.delete_study(study_name=ctx.name, storage=storage)
+        sid = None
+    n_before = 0 if sid is None else len(storage.get_all_trials(sid, deepcopy=False))
+    sampler, described = make_sampler(algorithm, target, _derived_seed(ctx.seed, n_before))
+    study = optuna.create_study(storage=storage, study_name=ctx.name, sampler=sampler,
+                                directions=goals.directions, load_if_exists=True)
+    study.set_user_attr(_ATTR_ALGORITHM, algorithm)
+    study.set_user_attr(_ATTR_SAMPLER, described)
+    return study, described
+
+
+def _drive(opt: _Optimizer, progress: bool | None, described: str) -> bool:
+    """Run the loop on the study's cluster with a progress bar; ``True`` if interrupted."""
+    from tqdm import tqdm
+
+    ctx = opt.ctx
+    opt.bar = tqdm(total=opt.target, initial=min(opt.complete, opt.target), unit="trial",
+                   file=sys.stderr, desc=ctx.name, dynamic_ncols=True, smoothing=0.1,
+                   disable=(not sys.stderr.isatty()) if progress is None else not progress)
+    try:
+        if opt.complete >= opt.target:
+            return False
+        from distributed import as_completed
+
+        logger.info("study %r: %d of %d trial(s) to complete with %s on %s", ctx.name,
+                    opt.target - opt.complete, opt.target, described, ctx.cluster.describe())
+        with open_client(ctx.cluster) as client:
+            opt.client, opt.ac = client, as_completed()
+            try:
+                opt.loop()
+            except KeyboardInterrupt:
+                logger.warning("interrupted: storing finished evaluations, cancelling the rest")
+                opt.interrupted()
+                return True
+            except BaseException:
+                opt.cancel()
+                raise
+        return False
+    finally:
+        opt.bar.close()
 
 
 def _trial_counts(study: Any) -> dict[str, Any]:
@@ -650,19 +649,25 @@ def _trial_counts(study: Any) -> dict[str, Any]:
 # -- status and inspection ------------------------------------------------------------------
 
 
-def _load_study(ctx: StudyContext, store: Store) -> Any | None:
-    """The optuna study of ``ctx`` read-only, or ``None`` if it has no trials table yet."""
+@contextmanager
+def _stored_study(ctx: StudyContext, store: Store) -> Iterator[Any | None]:
+    """The optuna study of ``ctx``, read-only, or ``None`` if it has no trials yet."""
     import optuna
     from sqlalchemy import inspect
 
     if not inspect(store.engine).has_table("studies"):
-        return None
+        yield None
+        return
     storage = open_storage(ctx.store_url, create=False)
-    if _study_id(storage, ctx.name) is None:
-        return None
-    with _quiet_optuna():
-        return optuna.load_study(study_name=ctx.name, storage=storage,
-                                 sampler=optuna.samplers.RandomSampler(seed=0))
+    try:
+        if _study_id(storage, ctx.name) is None:
+            yield None
+            return
+        with _quiet_optuna():
+            yield optuna.load_study(study_name=ctx.name, storage=storage,
+                                    sampler=optuna.samplers.RandomSampler(seed=0))
+    finally:
+        storage.engine.dispose()
 
 
 def optimize_status(ctx: StudyContext, store: Store, table: Any = None) -> dict[str, Any]:
@@ -685,10 +690,10 @@ def optimize_status(ctx: StudyContext, store: Store, table: Any = None) -> dict[
                            "objectives": [{"metric": o.metric, "goal": o.goal}
                                           for o in goals.objectives],
                            "front_size": 0, "best": None}
-    study = _load_study(ctx, store)
-    if study is not None:
-        out.update(_trial_counts(study))
-        out["sampler"] = study.user_attrs.get(_ATTR_SAMPLER)
+    with _stored_study(ctx, store) as study:
+        if study is not None:
+            out.update(_trial_counts(study))
+            out["sampler"] = study.user_attrs.get(_ATTR_SAMPLER)
     front = pareto_front(table_of(ctx) if table is None else table, goals)
     out["front_size"] = int(len(front))
     if len(goals.objectives) == 1 and len(front):
@@ -714,8 +719,7 @@ def trial_table(ctx: StudyContext) -> Any:
     import pandas as pd
 
     goals = Goals.from_section(ctx.study.optimize)
-    with Store(ctx.store_url, create=False) as store:
-        study = _load_study(ctx, store)
+    with Store(ctx.store_url, create=False) as store, _stored_study(ctx, store) as study:
         trials = [] if study is None else study.get_trials(deepcopy=False)
     rows = []
     for t in trials:

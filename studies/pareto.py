@@ -14,8 +14,9 @@ so the two can never disagree:
 - **Front**: the feasible designs (every violation 0) with a full objective vector that no other
   such design dominates (Pareto dominance: at least as good in every objective and strictly
   better in one; Deb, *Multi-Objective Optimization Using Evolutionary Algorithms*, Wiley 2001,
-  def. 2.5). Designs with equal objective vectors do not dominate each other: all are kept.
-  With one objective the front is the best feasible value (and any exact ties).
+  def. 2.5, numbering from memory). Designs with equal objective vectors do not dominate each
+  other: all are kept. With one objective the front is the best feasible value (and any exact
+  ties).
 """
 
 from __future__ import annotations

@@ -5,7 +5,7 @@ Sources of the checks:
   on :func:`sweeps.evaluate.evaluate`), not with anything the optimizer computes;
 - fronts are compared with a brute-force Pareto filter over the trials read with optuna's own
   storage API (Deb, *Multi-Objective Optimization Using Evolutionary Algorithms*, 2001,
-  def. 2.5), see ``test_optimize_support``;
+  def. 2.5, numbering from memory), see ``test_optimize_support``;
 - :func:`studies.pareto.non_dominated` against the same textbook definition on random sets
   with many ties (hypothesis, derandomized).
 """
@@ -325,7 +325,7 @@ def test_pareto_refusals(tmp_path, capsys):
     opt = write_optimize_study(tmp_path, TO_TARGET.format(trials=3),
                                space="length_mm = {min = 140, max = 170}")
     assert main(["export", str(opt), "--pareto", str(tmp_path / "f.csv")]) == 2
-    assert "run it first" in capsys.readouterr().err
+    assert "`filamant run` creates it" in capsys.readouterr().err
     assert main(["status", str(opt), "--json"]) == 0  # before any run: no optimize block
     assert "optimize" not in json.loads(capsys.readouterr().out)
     assert not Path(tmp_path / "f.csv").exists()
