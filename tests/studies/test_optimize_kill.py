@@ -125,3 +125,46 @@ def test_nsga2_killed_and_resumed_on_postgres(tmp_path):
                                space=TWO_SPACE, workers=2, name=unique_name("opt"),
                                store=postgres_url())
     _killed_and_resumed(cfg, tmp_path, 40)
+
+
+def test_ctrl_c_stores_requeues_and_refuses_a_second_run(tmp_path):
+    cfg = write_optimize_study(tmp_path, TWO_OBJECTIVES.format(trials=30, algorithm="tpe"),
+                               space=TWO_SPACE, workers=2)
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    ctx = load_context(cfg)
+    with open(tmp_path / "run.out", "w") as out, open(tmp_path / "run.err", "w") as err:
+        proc = subprocess.Popen([sys.executable, "-m", "studies.cli", "run", str(cfg),
+                                 "--no-progress"], env=env, stdout=out, stderr=err, text=True,
+                                start_new_session=True)
+    try:
+        t0, done = time.time(), 0
+        while done < 5:
+            assert proc.poll() is None and time.time() - t0 < 120, \
+                (tmp_path / "run.err").read_text()
+            try:
+                with Store(ctx.store_url, create=False) as store:
+                    done = store.counts(ctx.name)["done"]
+            except Exception:  # noqa: BLE001 - not created yet
+                pass
+            time.sleep(0.02)
+        second = subprocess.run([sys.executable, "-m", "studies.cli", "run", str(cfg)],
+                                env=env, capture_output=True, text=True, timeout=120)
+        assert second.returncode == 2 and "being run right now" in second.stderr
+        os.killpg(proc.pid, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
+        proc.wait(timeout=120)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+    assert proc.returncode == 130, (tmp_path / "run.err").read_text()
+    assert "interrupted" in (tmp_path / "run.out").read_text()
+    with Store(ctx.store_url, create=False) as store:
+        assert lease_info(store, ctx.name) is None  # released
+    trials = optuna_trials(cfg)
+    assert C.RUNNING not in {t.state for t in trials}  # failed and requeued at once
+    complete = sum(t.state == C.COMPLETE for t in trials)
+    assert complete < 30
+    resumed = run_study(cfg, progress=False)
+    assert resumed.trials["complete"] == 30
+    assert C.WAITING not in {t.state for t in optuna_trials(cfg)}
+    check_trials_match_points(cfg, ["modulation_depth", "efficiency"])
