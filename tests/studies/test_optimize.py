@@ -347,3 +347,14 @@ def test_samplers_of_each_algorithm(caplog):
         assert "needs PyTorch" in caplog.text
     else:
         assert isinstance(gp, optuna.samplers.GPSampler)
+
+
+def test_a_second_run_is_refused_while_one_holds_the_lease(tmp_path, capsys):
+    cfg = write_optimize_study(tmp_path, TO_TARGET.format(trials=3),
+                               space="length_mm = {min = 140, max = 170}")
+    ctx = load_context(cfg)
+    with Store(ctx.store_url) as store, Lease.acquire(store, ctx.name):
+        assert main(["run", str(cfg)]) == 2
+        assert "being run right now" in capsys.readouterr().err
+    with Store(ctx.store_url, create=False) as store:
+        assert store.study(ctx.name) is None  # nothing was written

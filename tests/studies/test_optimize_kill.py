@@ -4,15 +4,14 @@ feasible set of its trials — on the default SQLite store and on a real Postgre
 (``FILAMANT_TEST_POSTGRES_URL``; fails rather than skips when ``FILAMANT_REQUIRE_POSTGRES=1``).
 
 The front is recomputed by brute force from the trials as optuna stores them
-(``test_optimize_support.brute_force_front``), not by the code that exports it.
+(``test_optimize_support.brute_force_front``), not by the code that exports it. Ctrl-C (SIGINT to
+the process group) stores what has finished, fails and requeues the trials in flight at once,
+and releases the lease.
 """
 
 from __future__ import annotations
 
-import os
 import signal
-import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -34,8 +33,8 @@ from tests.studies.test_optimize_support import (
     stored_points,
     write_optimize_study,
 )
+from tests.studies.test_runner_kill import _killpg, _output, _start, _wait_done
 
-ROOT = Path(__file__).resolve().parents[2]
 C = optuna.trial.TrialState
 pytestmark = pytest.mark.slow
 
@@ -44,18 +43,13 @@ def _kill_mid_run(cfg: Path, at_least: int, timeout: float = 120.0) -> int:
     """Start ``filamant run`` in its own process group and SIGKILL the group (client and local
     workers) once ``at_least`` points are done and a trial is in flight; returns the points
     done then."""
-    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
     ctx = load_context(cfg)
-    err_path = cfg.with_suffix(".err")
-    with open(err_path, "w") as err:
-        proc = subprocess.Popen([sys.executable, "-m", "studies.cli", "run", str(cfg),
-                                 "--no-progress"], env=env, stdout=subprocess.DEVNULL,
-                                stderr=err, start_new_session=True)
+    proc = _start(cfg)
     storage = None
     try:
         done, in_flight, t0 = 0, 0, time.time()
         while done < at_least or not in_flight:
-            assert proc.poll() is None, f"the run ended early: {err_path.read_text()}"
+            assert proc.poll() is None, f"the run ended early: {_output(cfg)[1]}"
             assert time.time() - t0 < timeout, f"fewer than {at_least} points done in time"
             try:
                 with Store(ctx.store_url, create=False) as store:
@@ -69,12 +63,10 @@ def _kill_mid_run(cfg: Path, at_least: int, timeout: float = 120.0) -> int:
                 pass
             if not in_flight:
                 time.sleep(0.01)
-        os.killpg(proc.pid, signal.SIGKILL)
+        _killpg(proc, signal.SIGKILL)
         proc.wait(timeout=30)
     finally:
-        if proc.poll() is None:
-            os.killpg(proc.pid, signal.SIGKILL)
-            proc.wait()
+        _killpg(proc, signal.SIGKILL)
         if storage is not None:
             storage.engine.dispose()
     assert proc.returncode == -signal.SIGKILL
@@ -127,43 +119,27 @@ def test_nsga2_killed_and_resumed_on_postgres(tmp_path):
     _killed_and_resumed(cfg, tmp_path, 40)
 
 
-def test_ctrl_c_stores_requeues_and_refuses_a_second_run(tmp_path):
+def test_ctrl_c_stores_and_requeues(tmp_path):
+    # 41 frequencies: slower solves, so the run is surely still going when Ctrl-C comes
     cfg = write_optimize_study(tmp_path, TWO_OBJECTIVES.format(trials=30, algorithm="tpe"),
                                space=TWO_SPACE, workers=2)
-    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    cfg.write_text(cfg.read_text().replace("points = 11", "points = 41"))
     ctx = load_context(cfg)
-    with open(tmp_path / "run.out", "w") as out, open(tmp_path / "run.err", "w") as err:
-        proc = subprocess.Popen([sys.executable, "-m", "studies.cli", "run", str(cfg),
-                                 "--no-progress"], env=env, stdout=out, stderr=err, text=True,
-                                start_new_session=True)
+    proc = _start(cfg)
     try:
-        t0, done = time.time(), 0
-        while done < 5:
-            assert proc.poll() is None and time.time() - t0 < 120, \
-                (tmp_path / "run.err").read_text()
-            try:
-                with Store(ctx.store_url, create=False) as store:
-                    done = store.counts(ctx.name)["done"]
-            except Exception:  # noqa: BLE001 - not created yet
-                pass
-            time.sleep(0.02)
-        second = subprocess.run([sys.executable, "-m", "studies.cli", "run", str(cfg)],
-                                env=env, capture_output=True, text=True, timeout=120)
-        assert second.returncode == 2 and "being run right now" in second.stderr
-        os.killpg(proc.pid, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
+        _wait_done(cfg, 3, proc)
+        _killpg(proc, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
         proc.wait(timeout=120)
     finally:
-        if proc.poll() is None:
-            os.killpg(proc.pid, signal.SIGKILL)
-            proc.wait()
-    assert proc.returncode == 130, (tmp_path / "run.err").read_text()
-    assert "interrupted" in (tmp_path / "run.out").read_text()
+        _killpg(proc, signal.SIGKILL)
+    out, err = _output(cfg)
+    assert proc.returncode == 130, err
+    assert "interrupted" in out
     with Store(ctx.store_url, create=False) as store:
         assert lease_info(store, ctx.name) is None  # released
     trials = optuna_trials(cfg)
     assert C.RUNNING not in {t.state for t in trials}  # failed and requeued at once
-    complete = sum(t.state == C.COMPLETE for t in trials)
-    assert complete < 30
+    assert sum(t.state == C.COMPLETE for t in trials) < 30
     resumed = run_study(cfg, progress=False)
     assert resumed.trials["complete"] == 30
     assert C.WAITING not in {t.state for t in optuna_trials(cfg)}
