@@ -24,18 +24,22 @@ Outcomes
 - ``COMPLETE``: the objective metrics have values; the constraint violations of
   :meth:`studies.pareto.Goals.violations` are set with ``Trial.set_constraint`` (optuna 5's
   successor of the deprecated ``constraints_func``; the samplers read them from there).
-- ``PRUNED``: the design has no objective vector: its solve raised (the point is ``failed``
-  with the same reason; trial user attribute ``failed_solve = true``), or it was solved but an
-  objective metric is null (it does not exist for this design, e.g. no resonance in the band).
-  The reason is the trial's user attribute ``reason``; every constraint counts as violated by
-  :data:`studies.pareto.MISSING_VIOLATION`. Why not ``FAIL`` for a failed solve: optuna's
-  samplers ignore FAIL trials, so TPE never learns where the solver refuses designs and, on a
-  choice such as a trace too wide for the thin-wire model, keeps proposing it (measured: after
-  its start-up, TPE asked for the refused width in 23 trials out of 23). A pruned, infeasible
-  trial ranks below every complete one in TPE, which then avoids it; NSGA-II draws parents
-  from complete trials only.
-- ``FAIL``: a trial that never got a result: its worker died ``max_attempts`` times (the point
-  is ``failed``), or the run was killed while it was in flight (``interrupted``, asked again).
+- ``PRUNED``: the design has no objective vector, for one of two reasons, given in the trial's
+  user attribute ``reason``:
+
+  - its solve raised, or killed its worker ``max_attempts`` times: the point is ``failed``
+    with the same reason, the trial has ``failed_solve = true`` and every constraint counts as
+    violated by :data:`studies.pareto.MISSING_VIOLATION`;
+  - it was solved but an objective metric is null (it does not exist for this design, e.g. no
+    resonance in the band): the point is ``done``; the constraints are those of its metrics.
+
+  Why not ``FAIL`` for a failed solve: optuna's samplers ignore FAIL trials, so TPE never
+  learns where the solver refuses designs and, on a choice such as a trace too wide for the
+  thin-wire model, keeps proposing it (measured: after its start-up, TPE asked for the refused
+  width in 23 trials out of 23). A pruned trial ranks below every complete one in TPE, which
+  then avoids it; NSGA-II draws parents from complete trials only.
+- ``FAIL``: the run stopped (killed, Ctrl-C) while the trial was in flight: user attribute
+  ``interrupted = true``; its parameters are asked again.
 
 Only COMPLETE trials count toward ``optimize.trials``. So that a space where most designs fail
 cannot keep a run going for ever, the run stops once ``max(20, 3 * trials)`` trials have been
@@ -67,6 +71,7 @@ Samplers (``[optimize] algorithm``)
 from __future__ import annotations
 
 import importlib.util
+import itertools
 import logging
 import sys
 import time
@@ -277,6 +282,7 @@ class _Optimizer:
         self.dists = distributions(ctx.space)
         self.cap = max(20, 3 * target)
         self.tag = uuid.uuid4().hex[:8]
+        self.keys = itertools.count()
         self.jobs: dict[str, _Job] = {}
         self.by_future: dict[Any, str] = {}
         self.known: dict[str, _Outcome] = {}
@@ -405,7 +411,7 @@ class _Optimizer:
 
     def submit(self, job: _Job) -> None:
         p = job.point
-        key = f"filamant-opt-{self.tag}-{p.point_id}-{self.asked}"
+        key = f"filamant-opt-{self.tag}-{p.point_id}-{next(self.keys)}"
         job.future = self.client.submit(self.task, self.ctx.canonical_json,
                                         [(p.point_id, p.params)], pure=False, key=key)
         self.by_future[job.future] = p.point_id
@@ -469,7 +475,8 @@ class _Optimizer:
                 self.jobs[pid] = job
                 self.submit(job)
                 return
-            out = _Outcome("fail", reason=f"gave up after {self.max_attempts} attempts: {reason}")
+            out = _outcome(self.goals, False, {}, {},
+                           f"gave up after {self.max_attempts} attempts: {reason}")
         self.known[pid] = out
         for trial in job.trials:
             self.tell(trial, out)

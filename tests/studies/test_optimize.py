@@ -27,7 +27,7 @@ from studies.api import load_context, run_study, status_of
 from studies.cli import main
 from studies.designio import design_from, solver_settings
 from studies.lease import Lease
-from studies.optimize import distributions, open_storage
+from studies.optimize import distributions, open_storage, trial_table
 from studies.pareto import MISSING_VIOLATION, ConstraintSpec, Goals, ObjectiveSpec, non_dominated
 from studies.points import Point
 from studies.runner import evaluate_batch
@@ -35,6 +35,7 @@ from studies.space import Space
 from studies.store import Store
 from sweeps.evaluate import evaluate
 from tests.studies.test_optimize_support import (
+    TO_TARGET,
     TWO_OBJECTIVES,
     TWO_SPACE,
     brute_force_front,
@@ -45,17 +46,6 @@ from tests.studies.test_optimize_support import (
 )
 
 C = optuna.trial.TrialState
-
-#: Bring the resonance to 915 MHz from above: the lowest resonance that is not below the target.
-#: For a dipole the resonance falls with length, so this is the longest dipole that still
-#: resonates at or above 915 MHz.
-TO_TARGET = """\
-[optimize]
-trials = {trials}
-algorithm = "tpe"
-objectives = [{{metric = "resonance_mhz", goal = "min"}}]
-constraints = [{{metric = "resonance_mhz", min = 915}}]
-"""
 
 
 # -- units ----------------------------------------------------------------------------------
@@ -240,6 +230,12 @@ def test_failures_nulls_and_repeated_designs(tmp_path, capsys):
         else:
             assert tr.state == C.COMPLETE and tr.values == [p["resonance_mhz"]]
     check_trials_match_points(cfg, ["resonance_mhz"])
+    table = trial_table(load_context(cfg))  # the same trials through filamant's API
+    assert list(table["number"]) == [tr.number for tr in trials]
+    assert list(table["state"]) == [tr.state.name.lower() for tr in trials]
+    assert list(table["point_id"]) == [tr.user_attrs["point_id"] for tr in trials]
+    assert list(table["feasible"]) == [all(v <= 0 for v in tr.constraints.values())
+                                       for tr in trials]
     best = status_of(load_context(cfg))["optimize"]["best"]
     feasible = [p for p in points.values()
                 if p["resonance_mhz"] is not None and p["resonance_mhz"] >= 915.0]

@@ -25,6 +25,7 @@ from studies.lease import lease_info
 from studies.store import Store
 from tests.studies.studies_store_support import postgres_url, unique_name
 from tests.studies.test_optimize_support import (
+    TO_TARGET,
     TWO_OBJECTIVES,
     TWO_SPACE,
     brute_force_front,
@@ -144,3 +145,27 @@ def test_ctrl_c_stores_and_requeues(tmp_path):
     assert resumed.trials["complete"] == 30
     assert C.WAITING not in {t.state for t in optuna_trials(cfg)}
     check_trials_match_points(cfg, ["modulation_depth", "efficiency"])
+
+
+def test_a_design_that_kills_its_worker_is_given_up_not_retried_for_ever(tmp_path):
+    """``poison_task`` makes the worker process exit on the 103 mm design (as a segfault or
+    the out-of-memory killer would); the nanny replaces the worker, the design is tried
+    ``max_attempts`` times, then its point is failed and its trial pruned with the reason."""
+    import dask
+
+    from studies.api import run_context
+    from tests.studies.studies_store_support import poison_task
+
+    cfg = write_optimize_study(tmp_path, TO_TARGET.format(trials=3),
+                               space="length_mm = [103.0, 104.0, 105.0]", workers=2)
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        summary = run_context(load_context(cfg), task=poison_task, progress=False,
+                              max_attempts=2)
+    assert summary.trials["complete"] == 3 and summary.trials["stopped"] is None
+    points = {p["params"]["antenna.length_mm"]: p for p in stored_points(cfg).values()}
+    bad = points[103.0]
+    assert bad["status"] == "failed" and bad["attempts"] == 2
+    assert bad["reason"].startswith("gave up after 2 attempts: worker died")
+    poisoned = [t for t in optuna_trials(cfg) if t.params["antenna.length_mm"] == 103.0]
+    assert poisoned and all(t.state == C.PRUNED and t.user_attrs["failed_solve"]
+                            and t.user_attrs["reason"] == bad["reason"] for t in poisoned)

@@ -18,6 +18,17 @@ from studies.api import load_context
 from studies.store import Store
 from tests.studies.studies_store_support import write_study
 
+#: Bring the resonance to 915 MHz from above: the lowest resonance that is not below the target.
+#: For a dipole the resonance falls with length, so this is the longest dipole that still
+#: resonates at or above 915 MHz.
+TO_TARGET = """\
+[optimize]
+trials = {trials}
+algorithm = "tpe"
+objectives = [{{metric = "resonance_mhz", goal = "min"}}]
+constraints = [{{metric = "resonance_mhz", min = 915}}]
+"""
+
 #: A two-objective drawer-tag optimization (our own demo scenario): as much modulation depth and
 #: radiation efficiency as possible (they trade off through the filament's conductivity), with
 #: the resonance kept between 880 and 950 MHz.
