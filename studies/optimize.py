@@ -56,6 +56,10 @@ until ``trials`` trials are COMPLETE. A re-asked point that was already stored b
 is told from the store, not solved again. The resumed sampler is seeded with
 ``(seed, trials so far)``, so it does not replay the first run's random start.
 
+Ctrl-C or SIGTERM stops a run cleanly: evaluations already finished are stored and told, the
+others cancelled, their trials failed and requeued at once, the lease released. The signal
+takes effect only between database transactions (see :class:`_Interrupts`).
+
 Samplers (``[optimize] algorithm``)
 -----------------------------------
 - ``tpe``: ``optuna.samplers.TPESampler`` (Bergstra et al., NeurIPS 2011; multivariate for one
@@ -73,7 +77,9 @@ from __future__ import annotations
 import importlib.util
 import itertools
 import logging
+import signal
 import sys
+import threading
 import time
 import uuid
 from collections.abc import Callable, Iterator
@@ -262,6 +268,45 @@ def _params_of(space: Space, raw: dict[str, Any]) -> dict[str, Any] | None:
 # -- the loop -------------------------------------------------------------------------------
 
 
+class _Interrupts:
+    """Ctrl-C and SIGTERM, raised only where nothing is half-written.
+
+    While the loop waits for an evaluation the signal raises ``KeyboardInterrupt`` at once;
+    anywhere else (a store or optuna transaction, a sampler step) it only sets a flag that the
+    loop turns into ``KeyboardInterrupt`` at its next safe point. An interrupt inside a database
+    transaction could otherwise leave a pooled SQLite connection holding the write lock, and
+    the requeueing, the lease release and the next run would wait for it in vain.
+    """
+
+    def __init__(self) -> None:
+        self.requested = False
+        self.waiting = False
+
+    def _handler(self, signum: int, frame: Any) -> None:
+        self.requested = True
+        if self.waiting:
+            raise KeyboardInterrupt
+
+    def check(self) -> None:
+        """A safe point: raise the interrupt asked for since the last one."""
+        if self.requested:
+            raise KeyboardInterrupt
+
+    @contextmanager
+    def deferred(self) -> Iterator[None]:
+        """Install the handlers for SIGINT and SIGTERM (main thread only)."""
+        if threading.current_thread() is not threading.main_thread():
+            yield
+            return
+        old = {sig: signal.signal(sig, self._handler) for sig in (signal.SIGINT, signal.SIGTERM)}
+        try:
+            yield
+        finally:
+            for sig, handler in old.items():
+                signal.signal(sig, handler)
+
+
+
 @dataclass
 class _Job:
     point: Point
@@ -273,9 +318,10 @@ class _Optimizer:
     """One ``run``: the ask-and-tell loop (client side; owns the store writes)."""
 
     def __init__(self, ctx: StudyContext, store: Store, lease: Lease, storage: Any,
-                 study: Any, goals: Goals, target: int, *, task: Task, max_attempts: int
-                 ) -> None:
+                 study: Any, goals: Goals, target: int, *, task: Task, max_attempts: int,
+                 interrupts: _Interrupts) -> None:
         self.ctx, self.store, self.lease, self.study = ctx, store, lease, study
+        self.interrupts = interrupts
         self.storage = storage
         self.goals, self.target, self.task = goals, target, task
         self.max_attempts = max_attempts
@@ -374,6 +420,7 @@ class _Optimizer:
     def fill(self) -> None:
         """Ask trials until every worker is busy or enough trials are under way."""
         while self.stop_reason is None:
+            self.interrupts.check()
             if self.complete >= self.target:
                 return
             if self.unsuccessful >= self.cap:
@@ -484,7 +531,13 @@ class _Optimizer:
     def loop(self) -> None:
         self.fill()
         while self.jobs:
-            self.handle(next(self.ac))
+            self.interrupts.check()
+            self.interrupts.waiting = True
+            try:
+                fut = next(self.ac)
+            finally:
+                self.interrupts.waiting = False
+            self.handle(fut)
             if self.lease.lost.is_set():
                 raise StoreError(f"{self.store.display_url}: study {self.ctx.name!r}: the run "
                                  "lease was taken over by another client; stopping")
@@ -567,18 +620,21 @@ def run_optimize(ctx: StudyContext, *, fresh: bool = False, progress: bool | Non
         with Lease.acquire(store, ctx.name, command="run",
                            **lease_options(heartbeat_s, stale_after_s)) as lease:
             created, deleted = open_study(store, ctx, lease, fresh=fresh)
+            interrupts = _Interrupts()
             storage = open_storage(ctx.store_url)
             try:
-                study, described = _open_trials(ctx, storage, created, section.algorithm,
-                                                goals, target)
-                opt = _Optimizer(ctx, store, lease, storage, study, goals, target, task=task,
-                                 max_attempts=max_attempts)
-                opt.load()
-                opt.recover()
-                if on_start is not None:
-                    on_start(store.display_url, max(0, target - opt.complete), target)
-                interrupted = _drive(opt, progress, described)
-                trials = _trial_counts(study)
+                with interrupts.deferred():
+                    study, described = _open_trials(ctx, storage, created, section.algorithm,
+                                                    goals, target)
+                    opt = _Optimizer(ctx, store, lease, storage, study, goals, target,
+                                     task=task, max_attempts=max_attempts,
+                                     interrupts=interrupts)
+                    opt.load()
+                    opt.recover()
+                    if on_start is not None:
+                        on_start(store.display_url, max(0, target - opt.complete), target)
+                    interrupted = _drive(opt, progress, described)
+                    trials = _trial_counts(study)
             finally:
                 storage.engine.dispose()
             counts = store.counts(ctx.name)
