@@ -154,11 +154,16 @@ def run_context(ctx: StudyContext, *, fresh: bool = False, progress: bool | None
             if todo:
                 logger.info("study %r: %d of %d point(s) to evaluate on %s", ctx.name,
                             len(todo), before["total"], ctx.cluster.describe())
-                with open_client(ctx.cluster) as client:
-                    stats = run_points(store, ctx.name, ctx.canonical_json, todo, lease, client,
-                                       task=task, progress=progress,
-                                       done_before=before["total"] - len(todo),
-                                       **runner_options)
+                try:
+                    with open_client(ctx.cluster) as client:
+                        stats = run_points(store, ctx.name, ctx.canonical_json, todo, lease,
+                                           client, task=task, progress=progress,
+                                           done_before=before["total"] - len(todo),
+                                           **runner_options)
+                except KeyboardInterrupt:
+                    if stats is None:  # while the cluster started: nothing was evaluated
+                        raise
+                    stats.interrupted = True  # while it shut down: every result is stored
             counts = store.counts(ctx.name)
     return RunSummary(
         study=ctx.name, store=store.display_url, total=counts["total"], done=counts["done"],
@@ -261,13 +266,15 @@ def status_of(ctx: StudyContext) -> dict[str, Any]:
     return out
 
 
-def study_table(path: PathLike, overrides: Sequence[str] = ()) -> pd.DataFrame:
+def study_table(path: PathLike, overrides: Sequence[str] = (), *, done_only: bool = False
+                ) -> pd.DataFrame:
     """The study of ``path`` as a table; see :func:`table_of`."""
-    return table_of(load_context(path, overrides))
+    return table_of(load_context(path, overrides), done_only=done_only)
 
 
-def table_of(ctx: StudyContext) -> pd.DataFrame:
-    """One row per point of the study, in plan order.
+def table_of(ctx: StudyContext, *, done_only: bool = False) -> pd.DataFrame:
+    """One row per point of the study (only the evaluated ones with ``done_only``), in plan
+    order.
 
     Columns: ``point_id``; the parameters by dotted name (config units); one column per metric
     (``sweeps.metrics.METRIC_NAMES`` order, NaN where the metric is missing or the point is not
@@ -284,6 +291,8 @@ def table_of(ctx: StudyContext) -> pd.DataFrame:
             raise StoreError(f"{store.display_url}: no study {ctx.name!r} yet; run it first "
                              "(filamant run)")
         rows = store.results(ctx.name)
+    if done_only:
+        rows = [r for r in rows if r["status"] == "done"]
     names = list(ctx.space.names)
     for r in rows:  # points whose parameters are not in [space] (should not happen)
         names += [k for k in r["params"] if k not in names]

@@ -33,7 +33,7 @@ VERBS: dict[str, str] = {
     "ask": "instant what-if answers from a fitted surrogate",
     "tradeoff": "trade-off fronts between metrics",
     "yield": "yield of a design under print tolerances",
-    "report": "a report of a study",
+    "report": "an HTML report of a study: best designs, plots, trade-off, yield, cautions",
     "bench": "run the performance benchmarks",
     "init": "write a commented example design or study to start from",
 }
@@ -84,10 +84,18 @@ def _global_options(parser: argparse.ArgumentParser, *, suppress: bool) -> None:
                         help="more log output on stderr (-v info, -vv debug)")
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with the project's error style: one line on stderr, exit status 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        _error(f"{self.prog}: {message} (see {self.prog} --help)")
+        raise SystemExit(2)
+
+
 def build_parser(verb: str | None = None, module: ModuleType | None = None
                  ) -> argparse.ArgumentParser:
     """The argument parser; only ``verb`` (if given) gets its arguments from ``module``."""
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="filamant",
         description="Design studies for 3-D-printed backscatter tags.",
         epilog="filamant VERB --help shows a verb's options and an example.",
@@ -179,15 +187,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser = build_parser(verb, module)
         args = parser.parse_args(argv)
     except _UsageError as exc:
-        sys.stderr.write("usage: filamant [--debug] [-v] VERB ...\n")
-        _error(str(exc))
+        _error(f"{exc} (filamant --help lists the verbs)")
         return 2
     except SystemExit as exc:  # argparse: --help, --version (0) or a usage error (2)
         return exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 2)
     except Exception as exc:  # a verb module that fails to import
         return _unexpected(exc, debug)
     if module is None:
-        parser.print_usage(sys.stderr)
         _error("choose a verb (filamant --help lists them)")
         return 2
 

@@ -27,11 +27,9 @@ import functools
 import logging
 import math
 import os
-import signal
 import socket
 import statistics
 import sys
-import threading
 import time
 import uuid
 from collections import deque
@@ -165,21 +163,6 @@ def _jobqueue_options(cls: type) -> set[str]:
 
 
 @contextmanager
-def _children_ignore_sigint() -> Iterator[None]:
-    """Start local worker processes with SIGINT ignored (an ignored signal stays ignored across
-    exec), so Ctrl-C in a terminal, which reaches the whole process group, stops the client
-    cleanly instead of killing the workers under it. Ctrl-C is ignored for that moment."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    old = signal.signal(signal.SIGINT, signal.SIG_IGN)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, old)
-
-
-@contextmanager
 def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
                 ) -> Iterator[Any]:
     """A ``distributed.Client`` on the cluster ``settings`` describes; closed on exit.
@@ -207,14 +190,17 @@ def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
 
         # one task per worker thread at a time: a worker that dies was running exactly the
         # batch it is blamed for (dask counts every task on a dead worker as suspicious)
-        with dask.config.set({"distributed.scheduler.worker-saturation": 1.0}), \
-                _children_ignore_sigint():
+        with dask.config.set({"distributed.scheduler.worker-saturation": 1.0}):
             cluster = LocalCluster(n_workers=settings.workers or default_workers(),
                                    threads_per_worker=1, processes=True,
                                    dashboard_address=":0")
     try:
         client = Client(cluster)
         try:
+            if not settings.jobqueue:  # local workers share the terminal's Ctrl-C
+                from studies.workersignals import IgnoreSigint
+
+                client.register_plugin(IgnoreSigint())
             yield client
         finally:
             client.close()

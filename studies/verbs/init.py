@@ -38,7 +38,12 @@ def write_starter(directory: Path, force: bool = False) -> list[Path]:
     ConfigError
         If a file exists and ``force`` is false (nothing is written then).
     """
-    directory.mkdir(parents=True, exist_ok=True)
+    if directory.exists() and not directory.is_dir():
+        raise ConfigError(f"{directory}: exists and is not a folder; give a folder for init")
+    try:
+        directory.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ConfigError(f"{directory}: cannot create the folder ({exc.strerror})") from None
     targets = [directory / name for name in TEMPLATES]
     existing = [p for p in targets if p.exists()]
     if existing and not force:

@@ -103,12 +103,16 @@ def test_top_level_usage(capsys):
     for verb in cli.VERBS:
         assert verb in out
     code, _, err = run_cli(capsys)
-    assert code == 2 and err.strip().splitlines()[-1] == (
-        "filamant: error: choose a verb (filamant --help lists them)")
+    assert code == 2 and err.strip().splitlines() == [
+        "filamant: error: choose a verb (filamant --help lists them)"]
     code, _, err = run_cli(capsys, "evalute", "x.toml")
     assert code == 2
-    assert err.strip().splitlines()[-1] == ("filamant: error: unknown verb 'evalute'; did you "
-                                            "mean evaluate?")
+    assert err.strip().splitlines() == ["filamant: error: unknown verb 'evalute'; did you "
+                                        "mean evaluate? (filamant --help lists the verbs)"]
+    # argparse usage errors follow the same one-line style
+    code, _, err = run_cli(capsys, "evaluate")
+    assert code == 2 and len(err.strip().splitlines()) == 1
+    assert err.startswith("filamant: error: filamant evaluate: ")
     code, out, _ = run_cli(capsys, "--version")
     assert code == 0 and out.startswith("filamant ")
 

@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 import skrf
 
-from studies.api import load_context, run_study
+from studies.api import load_context, run_study, table_of
 from studies.cli import main
 from studies.lease import Lease
 from studies.store import Store
@@ -82,6 +82,9 @@ def test_run_status_export_end_to_end(tmp_path, capsys):
     assert failed["s11_db"].isna().all()
     done = df[df["status"] == "done"]
     assert done["s11_db"].notna().all() and done["zin_re_ohm"].gt(0).all()
+
+    only = table_of(load_context(cfg), done_only=True)
+    assert list(only["point_id"]) == list(done["point_id"])
 
     files = sorted(tsdir.glob("*.s1p"))
     assert len(files) == summary["done"]

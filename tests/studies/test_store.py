@@ -251,6 +251,7 @@ def _race(url: str, name: str, start: float, q) -> None:
         q.put("refused")
 
 
+@pytest.mark.slow
 def test_lease_race_has_one_winner(url):
     """Four processes ask for the same lease at the same instant: exactly one gets it."""
     Store(url).close()  # tables exist before the race
