@@ -14,7 +14,7 @@ so the two can never disagree:
 - **Front**: the feasible designs (every violation 0) with a full objective vector that no other
   such design dominates (Pareto dominance: at least as good in every objective and strictly
   better in one; Deb, *Multi-Objective Optimization Using Evolutionary Algorithms*, Wiley 2001,
-  def. 2.5, numbering from memory). Designs with equal objective vectors do not dominate each
+  section 2.4, from memory). Designs with equal objective vectors do not dominate each
   other: all are kept. With one objective the front is the best feasible value (and any exact
   ties).
 """
@@ -141,6 +141,9 @@ def _number(v: Any) -> float | None:
 def non_dominated(values: NDArray[np.float64], maximize: Sequence[bool]) -> NDArray[np.bool_]:
     """Mask of the rows of ``values`` that no other row Pareto-dominates.
 
+    The filter is :func:`surrogates.tradeoff.non_dominated` (a lexicographic sweep) on the
+    values turned into losses; equal rows are all kept.
+
     Parameters
     ----------
     values : ndarray, shape (n, k)
@@ -152,18 +155,16 @@ def non_dominated(values: NDArray[np.float64], maximize: Sequence[bool]) -> NDAr
     -------
     ndarray of bool, shape (n,)
     """
+    from surrogates.tradeoff import non_dominated as front_indices
+
     a = np.asarray(values, dtype=float)
     if a.ndim != 2 or a.shape[1] != len(maximize):
         raise ValueError(f"values must have shape (n, {len(maximize)}), got {a.shape}")
     if not np.isfinite(a).all():
         raise ValueError("objective values must be finite")
     loss = a * np.where(np.asarray(maximize, dtype=bool), -1.0, 1.0)  # smaller is better
-    keep = np.ones(len(loss), dtype=bool)
-    for start in range(0, len(loss), 256):  # O(n^2 k) time, O(256 n k) memory
-        block = loss[start:start + 256]
-        le = (loss[None, :, :] <= block[:, None, :]).all(axis=2)
-        lt = (loss[None, :, :] < block[:, None, :]).any(axis=2)
-        keep[start:start + len(block)] = ~(le & lt).any(axis=1)
+    keep = np.zeros(len(loss), dtype=bool)
+    keep[front_indices(loss)] = True
     return keep
 
 

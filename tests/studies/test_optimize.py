@@ -5,7 +5,7 @@ Sources of the checks:
   on :func:`sweeps.evaluate.evaluate`), not with anything the optimizer computes;
 - fronts are compared with a brute-force Pareto filter over the trials read with optuna's own
   storage API (Deb, *Multi-Objective Optimization Using Evolutionary Algorithms*, 2001,
-  def. 2.5, numbering from memory), see ``test_optimize_support``;
+  section 2.4, from memory), see ``test_optimize_support``;
 - :func:`studies.pareto.non_dominated` against the same textbook definition on random sets
   with many ties (hypothesis, derandomized).
 """
@@ -63,7 +63,7 @@ def _brute_mask(values: np.ndarray, maximize: list[bool]) -> np.ndarray:
 
 
 @settings(derandomize=True, max_examples=200, deadline=None)
-@given(st.integers(1, 3).flatmap(lambda k: st.tuples(
+@given(st.integers(1, 4).flatmap(lambda k: st.tuples(
     st.lists(st.lists(st.integers(-3, 3), min_size=k, max_size=k), min_size=1, max_size=40),
     st.lists(st.booleans(), min_size=k, max_size=k))))
 def test_non_dominated_is_the_textbook_front(case):
@@ -74,7 +74,7 @@ def test_non_dominated_is_the_textbook_front(case):
 
 def test_non_dominated_in_blocks_and_refusals():
     rng = np.random.default_rng(5)
-    values = rng.integers(0, 20, size=(600, 2)).astype(float)  # more rows than one block
+    values = rng.integers(0, 20, size=(600, 2)).astype(float)  # 600 rows, many ties
     np.testing.assert_array_equal(non_dominated(values, [True, False]),
                                   _brute_mask(values, [True, False]))
     with pytest.raises(ValueError, match="finite"):

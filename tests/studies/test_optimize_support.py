@@ -80,7 +80,7 @@ def stored_points(cfg: Path) -> dict[str, dict[str, Any]]:
 
 def brute_force_front(trials: list[optuna.trial.FrozenTrial], maximize: list[bool]) -> set[str]:
     """Point ids of the feasible, non-dominated COMPLETE trials, by the textbook definition
-    (Deb 2001, def. 2.5 from memory: ``a`` dominates ``b`` if no worse in every objective and
+    (Deb 2001, section 2.4 from memory: ``a`` dominates ``b`` if no worse in every objective and
     better in one), with optuna's feasibility rule (every stored constraint value <= 0)."""
     done = [t for t in trials if t.state == optuna.trial.TrialState.COMPLETE
             and all(v <= 0 for v in t.constraints.values())]
