@@ -757,7 +757,7 @@ def optimize_status(ctx: StudyContext, store: Store, table: Any = None) -> dict[
         if study is not None:
             out.update(_trial_counts(study))
             out["sampler"] = study.user_attrs.get(_ATTR_SAMPLER)
-    front = pareto_front(table_of(ctx) if table is None else table, goals)
+    front = pareto_front(table_of(ctx, done_only=True) if table is None else table, goals)
     out["front_size"] = int(len(front))
     if len(goals.objectives) == 1 and len(front):
         row = front.iloc[0]

@@ -202,7 +202,7 @@ def front_of(ctx: Any) -> pd.DataFrame:
     from studies.api import table_of
 
     goals = Goals.from_section(getattr(ctx.study, "optimize", None))
-    return pareto_front(table_of(ctx), goals)
+    return pareto_front(table_of(ctx, done_only=True), goals)
 
 
 def export_pareto(ctx: Any, path: str | os.PathLike[str]) -> tuple[Path, int]:
