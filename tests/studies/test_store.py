@@ -240,15 +240,20 @@ def test_heartbeat_thread_beats(url):
     store.close()
 
 
-def _race(url: str, name: str, start: float, q) -> None:
+def _race(url: str, name: str, start: float, q, done) -> None:
     store = Store(url)
     while time.time() < start:
         time.sleep(0.001)
     try:
-        Lease.acquire(store, name)
-        q.put("won")
+        lease = Lease.acquire(store, name)
     except StoreError:
         q.put("refused")
+        return
+    q.put("won")
+    # hold the lease (stay alive) until every contender has tried: a winner that exited would
+    # leave a dead owner, whose lease a later contender may rightly take over
+    done.wait(timeout=120)
+    lease.release()
 
 
 @pytest.mark.slow
@@ -258,14 +263,18 @@ def test_lease_race_has_one_winner(url):
     name = unique_name("race")
     ctx = mp.get_context("spawn")
     q = ctx.Queue()
+    done = ctx.Event()
     start = time.time() + 1.5
-    procs = [ctx.Process(target=_race, args=(url, name, start, q)) for _ in range(4)]
+    procs = [ctx.Process(target=_race, args=(url, name, start, q, done)) for _ in range(4)]
     for p in procs:
         p.start()
-    results = sorted(q.get(timeout=60) for _ in procs)
-    for p in procs:
-        p.join(timeout=30)
+    try:
+        results = sorted(q.get(timeout=120) for _ in procs)
+        with Store(url) as store, store.read() as conn:
+            held = conn.execute(select(lease_table).where(lease_table.c.study == name)).all()
+    finally:
+        done.set()
+        for p in procs:
+            p.join(timeout=30)
     assert results == ["refused"] * 3 + ["won"]
-    with Store(url) as store, store.read() as conn:
-        assert len(conn.execute(select(lease_table).where(lease_table.c.study == name))
-                   .all()) == 1
+    assert len(held) == 1
