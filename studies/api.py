@@ -26,10 +26,10 @@ from studies.context import StudyContext
 from studies.lease import Lease, lease_info
 from studies.runner import Task, evaluate_batch, open_client, run_points
 from studies.store import METRIC_COLUMNS, Store, describe_changes
-from sweeps.errors import ConfigError, StoreError
+from sweeps.errors import StoreError
 
 __all__ = ["RunSummary", "load_context", "open_study", "run_study", "run_context",
-           "study_status", "status_of", "study_table", "table_of"]
+           "study_status", "status_of", "study_table", "table_of", "lease_options"]
 
 logger = logging.getLogger(__name__)
 
@@ -59,6 +59,9 @@ class RunSummary:
         Median evaluation time of one point on a worker.
     workers : int
         Worker threads seen.
+    trials : dict or None
+        Optimization studies only: optuna trial counts (see
+        :func:`studies.optimize.run_optimize`).
     """
 
     study: str
@@ -74,6 +77,7 @@ class RunSummary:
     elapsed_s: float
     seconds_per_point: float | None
     workers: int
+    trials: dict[str, Any] | None = None
 
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -127,15 +131,14 @@ def run_context(ctx: StudyContext, *, fresh: bool = False, progress: bool | None
     ``runner_options`` (see :func:`studies.runner.run_points`) are for tests and benchmarks.
     """
     if ctx.method == "optimize":
-        raise ConfigError(f"study {ctx.name!r}: sampler.method = \"optimize\": optimization "
-                          "studies are not available in this version yet; use grid, sobol, lhs "
-                          "or random")
+        from studies.optimize import run_optimize
+
+        opts = {k: v for k, v in runner_options.items() if k == "max_attempts"}
+        return run_optimize(ctx, fresh=fresh, progress=progress, task=task,
+                            heartbeat_s=heartbeat_s, stale_after_s=stale_after_s,
+                            on_start=on_start, **opts)
     t0 = time.perf_counter()
-    lease_kw: dict[str, float] = {}
-    if heartbeat_s is not None:
-        lease_kw["heartbeat_s"] = heartbeat_s
-    if stale_after_s is not None:
-        lease_kw["stale_after_s"] = stale_after_s
+    lease_kw = lease_options(heartbeat_s, stale_after_s)
     with Store(ctx.store_url) as store:
         metrics_fp = _metrics_fingerprint(ctx)
         if not fresh:  # refuse a changed config before writing anything
@@ -170,6 +173,13 @@ def run_context(ctx: StudyContext, *, fresh: bool = False, progress: bool | None
         seconds_per_point=stats.seconds_per_point if stats else None,
         workers=stats.workers if stats else 0,
     )
+
+
+def lease_options(heartbeat_s: float | None, stale_after_s: float | None
+                  ) -> dict[str, float]:
+    """Keyword arguments of :meth:`Lease.acquire` for the timings given (``None``: default)."""
+    opts = {"heartbeat_s": heartbeat_s, "stale_after_s": stale_after_s}
+    return {k: v for k, v in opts.items() if v is not None}
 
 
 def open_study(store: Store, ctx: StudyContext, lease: Lease, *, fresh: bool = False
@@ -212,7 +222,9 @@ def status_of(ctx: StudyContext) -> dict[str, Any]:
     still to evaluate), ``done``, ``failed``, ``total``, ``running`` (the live run's host, pid,
     command, heartbeat age — or ``None``), ``config_matches`` (the config is the stored one),
     ``config_changes`` (what differs, if not), ``failure_reasons`` (most common reasons with
-    counts), ``created_at`` (epoch s) and ``solver_version``.
+    counts), ``created_at`` (epoch s) and ``solver_version``; for an optimization study that
+    has been run, ``optimize`` (trial counts, best value or front size: see
+    :func:`studies.optimize.optimize_status`).
     """
     out: dict[str, Any] = {"study": ctx.name, "store": None, "exists": False, "planned": 0,
                            "done": 0, "failed": 0, "total": 0, "running": None,
@@ -247,6 +259,10 @@ def status_of(ctx: StudyContext) -> dict[str, Any]:
             reasons = Counter(r["reason"] or "" for r in store.results(ctx.name)
                               if r["status"] == "failed")
             out["failure_reasons"] = dict(reasons.most_common(5))
+        if ctx.method == "optimize":
+            from studies.optimize import optimize_status
+
+            out["optimize"] = optimize_status(ctx, store)
     return out
 
 

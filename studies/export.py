@@ -18,7 +18,8 @@ from studies.context import StudyContext
 from studies.store import Store
 from sweeps.errors import ConfigError, FilamantError, StoreError
 
-__all__ = ["export_table", "export_touchstone", "TABLE_SUFFIXES", "touchstone_comments"]
+__all__ = ["export_table", "export_touchstone", "TABLE_SUFFIXES", "touchstone_comments",
+           "check_table_path", "write_table"]
 
 logger = logging.getLogger(__name__)
 
@@ -41,26 +42,45 @@ def export_table(ctx: StudyContext, path: str | os.PathLike[str]) -> tuple[Path,
     StoreError
         If the study has not been run.
     """
+    path = check_table_path(path)
+    df = table_of(ctx)
+    write_table(df, path)
+    return path, len(df)
+
+
+def check_table_path(path: str | os.PathLike[str], option: str = "--table") -> Path:
+    """``path`` as a table file to write: a .csv or .parquet name in an existing directory.
+
+    Raises
+    ------
+    ConfigError
+        Naming ``option`` and the path.
+    """
     path = Path(path)
-    suffix = path.suffix.lower()
-    if suffix not in TABLE_SUFFIXES:
-        raise ConfigError(f"--table {path}: the file must end in .csv or .parquet "
+    if path.suffix.lower() not in TABLE_SUFFIXES:
+        raise ConfigError(f"{option} {path}: the file must end in .csv or .parquet "
                           f"(got {path.suffix or 'no suffix'})")
     if not path.parent.is_dir():
-        raise ConfigError(f"--table {path}: directory {path.parent} does not exist")
-    df = table_of(ctx)
+        raise ConfigError(f"{option} {path}: directory {path.parent} does not exist")
+    return path
+
+
+def write_table(df: pd.DataFrame, path: str | os.PathLike[str], option: str = "--table"
+                ) -> None:
+    """Write ``df`` to ``path`` (.csv or .parquet by its suffix) through a temporary file moved
+    into place, so an interrupted export never leaves a half-written file."""
+    path = Path(path)
     tmp = _atomic_target(path)
     try:
-        if suffix == ".csv":
+        if path.suffix.lower() == ".csv":
             df.to_csv(tmp, index=False)
         else:
             _parquet_ready(df).to_parquet(tmp, index=False)
         os.replace(tmp, path)
     except OSError as exc:
-        raise ConfigError(f"--table {path}: cannot write ({exc.strerror or exc})") from None
+        raise ConfigError(f"{option} {path}: cannot write ({exc.strerror or exc})") from None
     finally:
         tmp.unlink(missing_ok=True)
-    return path, len(df)
 
 
 def _parquet_ready(df: pd.DataFrame) -> pd.DataFrame:

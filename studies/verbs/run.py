@@ -20,6 +20,7 @@ from contextlib import contextmanager
 from typing import Any
 
 from studies.verbs.common import add_json_option, add_set_option, print_json
+from sweeps.errors import ConfigError
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
@@ -39,7 +40,20 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                           help="show the progress bar even when stderr is not a terminal")
     progress.add_argument("--no-progress", dest="progress", action="store_false",
                           help="no progress bar")
+    parser.add_argument("--refine", type=_count, metavar="N", default=0,
+                        help="after the run, add N points where the surrogate is least certain, "
+                             "evaluate them and refit the surrogate (sweep studies)")
     add_json_option(parser)
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 (got {text!r})") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 (got {value})")
+    return value
 
 
 @contextmanager
@@ -59,19 +73,44 @@ def _sigterm_as_interrupt() -> Iterator[None]:
         signal.signal(signal.SIGTERM, old)
 
 
+def _refine(ctx: Any, n: int, progress: bool | None,
+            started: Any) -> tuple[Any, int, Any]:
+    """``--refine N``: propose N points (surrogate_api.add_refinement_points), run, refit."""
+    from studies.api import run_context
+    from studies.surrogate_api import add_refinement_points, fit_study
+
+    n_new = len(add_refinement_points(ctx, n, seed=ctx.study.sampler.seed))
+    summary = run_context(ctx, fresh=False, progress=progress, on_start=started)
+    outcome = fit_study(ctx)
+    return summary, n_new, outcome.path
+
+
 def run(args: argparse.Namespace) -> int:
     """Run the study ``args.study``; 0 when finished, 130 when interrupted."""
     from studies.api import load_context, run_context
 
     ctx = load_context(args.study, args.set)
 
+    what = "trial(s) to complete" if ctx.method == "optimize" else "point(s) to evaluate"
+
     def started(url: str, todo: int, total: int) -> None:
         sys.stderr.write(f"filamant: study {ctx.name}: store {url} ({todo} of {total} "
-                         "point(s) to evaluate)\n")
+                         f"{what})\n")
         sys.stderr.flush()
 
+    if args.refine and ctx.method == "optimize":
+        raise ConfigError(f"{args.study}: --refine adds surrogate-chosen points to a sweep study; "
+                          "an optimization study chooses its own trials ([optimize] trials)")
+    refined = None
     with _sigterm_as_interrupt():
         summary = run_context(ctx, fresh=args.fresh, progress=args.progress, on_start=started)
+        if args.refine and not summary.interrupted:
+            refined = _refine(ctx, args.refine, args.progress, started)
+            summary = refined[0]
+    if refined is not None and not args.json:
+        n_new, fitted = refined[1], refined[2]
+        sys.stdout.write(f"refined: {n_new} point(s) added where the surrogate was least "
+                         f"certain; surrogate refitted to {fitted}\n")
     if args.json:
         print_json(summary.as_dict())
     else:
@@ -79,6 +118,12 @@ def run(args: argparse.Namespace) -> int:
         out = sys.stdout
         out.write(f"study {s.study}: {s.total} point(s) in {s.store}\n")
         out.write(f"  done {s.done}, failed {s.failed}, still planned {s.planned}\n")
+        if s.trials is not None:
+            t = s.trials
+            out.write(f"  trials: {t['complete']} of {t['target']} complete, {t['pruned']} "
+                      f"pruned, {t['failed']} failed\n")
+            if t.get("stopped"):
+                out.write(f"  stopped early: {t['stopped']}\n")
         if s.evaluated:
             per = f", {s.seconds_per_point:.3g} s per point" if s.seconds_per_point else ""
             out.write(f"  this run: {s.evaluated} evaluated in {s.elapsed_s:.1f} s on "

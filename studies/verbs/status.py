@@ -2,16 +2,19 @@
 
 Prints the points still ``planned``, ``done`` and ``failed`` (and the ``total``), the store
 URL, the live run (host, pid, heartbeat age) if any, whether the config still matches the
-stored study, and the most common failure reasons. ``--json`` prints the same as one object
-(keys of :func:`studies.api.status_of`). Never creates a store.
+stored study, and the most common failure reasons; for an optimization study also the trials
+(complete, pruned, failed) and the best value (one objective) or the size of the Pareto front
+(several). ``--json`` prints the same as one object (keys of :func:`studies.api.status_of`).
+Never creates a store.
 """
 
 from __future__ import annotations
 
 import argparse
 import sys
+from typing import TextIO
 
-from studies.verbs.common import add_json_option, add_set_option, print_json
+from studies.verbs.common import add_json_option, add_set_option, format_number, print_json
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
@@ -51,4 +54,25 @@ def run(args: argparse.Namespace) -> int:
                   + "; ".join(st["config_changes"]) + "\n")
     for reason, n in st["failure_reasons"].items():
         out.write(f"  failed x{n}: {reason}\n")
+    if "optimize" in st:
+        _optimize_lines(st["optimize"], out)
     return 0
+
+
+def _optimize_lines(o: dict, out: TextIO) -> None:
+    """The optimization part of the status (``studies.optimize.optimize_status``)."""
+    out.write(f"  optimization ({o['algorithm']}): {o['complete']} of {o['trials']} trial(s) "
+              f"complete, {o['pruned']} pruned, {o['failed']} failed"
+              + (f", {o['running']} running" if o["running"] else "") + "\n")
+    goals = ", ".join(f"{x['goal']} {x['metric']}" for x in o["objectives"])
+    best = o["best"]
+    if best is not None:
+        params = ", ".join(f"{k} = {format_number(v) if isinstance(v, float) else v}"
+                           for k, v in best["params"].items())
+        out.write(f"  best {best['metric']} = {format_number(best['value'])} at point "
+                  f"{best['point_id']} ({params})\n")
+    elif len(o["objectives"]) > 1:
+        out.write(f"  Pareto front ({goals}): {o['front_size']} feasible point(s); "
+                  "filamant export --pareto FILE.csv writes them\n")
+    else:
+        out.write(f"  no feasible point yet ({goals})\n")
