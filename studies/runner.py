@@ -341,11 +341,13 @@ def run_points(
         return max(1, n)
 
     def batch_size() -> int:
+        tail = math.ceil(len(queue) / (slots() * in_flight_per_worker))
         if not times:
-            return 1
+            # no timing yet: small first batches (an unknown design may take long), but not
+            # single points, whose scheduling and store overhead would dominate cheap designs
+            return max(1, min(4, tail))
         per = statistics.median(times)
         size = max(1, min(max_batch, round(target_batch_s / max(per, 1e-6))))
-        tail = math.ceil(len(queue) / (slots() * in_flight_per_worker))
         return max(1, min(size, tail))
 
     def submit() -> None:

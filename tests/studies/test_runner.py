@@ -55,7 +55,7 @@ def test_all_points_stored_batches_grow(study, client):
                        task=fake_task, progress=False, target_batch_s=0.2, max_batch=8)
     assert store.counts(name) == {"planned": 0, "done": 40, "failed": 0, "total": 40}
     assert stats.evaluated == 40 and not stats.interrupted
-    assert stats.batch_sizes[0] == 1  # timing batch
+    assert 1 <= stats.batch_sizes[0] <= 4  # small batches until the first timing
     assert max(stats.batch_sizes) > 1 and max(stats.batch_sizes) <= 8
     assert sum(stats.batch_sizes) == 40
     assert stats.workers == 2
