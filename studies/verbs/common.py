@@ -15,6 +15,8 @@ __all__ = [
     "is_touchstone_path",
     "dash",
     "format_number",
+    "whole_number",
+    "port_number",
 ]
 
 _TOUCHSTONE = re.compile(r"\.s\d+p$", re.IGNORECASE)
@@ -57,3 +59,19 @@ def dash() -> str:
 def format_number(value: float) -> str:
     """A metric value for a table: five significant digits."""
     return f"{value:.5g}"
+
+
+def whole_number(text: str, what: str = "a whole number") -> int:
+    """argparse type: an integer >= 1 (``what`` names it in the message)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be {what} >= 1 (got {text!r})") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be {what} >= 1 (got {value})")
+    return value
+
+
+def port_number(text: str) -> int:
+    """argparse type: a port number >= 1."""
+    return whole_number(text, "a port number")

@@ -35,6 +35,7 @@ from studies.verbs.common import (
     dash,
     format_number,
     is_touchstone_path,
+    port_number,
     print_json,
 )
 from sweeps.errors import ConfigError
@@ -48,15 +49,6 @@ log = logging.getLogger(__name__)
 
 _NOT_COMPUTED = "not computed by this version"
 
-
-def _port(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a port number >= 1 (got {text!r})") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a port number >= 1 (got {value})")
-    return value
 
 
 def _mhz(text: str) -> float:
@@ -77,7 +69,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_json_option(parser)
     parser.add_argument("--touchstone", metavar="PATH", type=Path,
                         help="also write the port result as a Touchstone file (.s1p)")
-    parser.add_argument("--port", type=_port, metavar="N",
+    parser.add_argument("--port", type=port_number, metavar="N",
                         help="antenna port of a Touchstone result (default 1)")
     parser.add_argument("--target-mhz", type=_mhz, metavar="F",
                         help="frequency of the metrics in MHz (default: the design's "

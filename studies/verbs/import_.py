@@ -14,8 +14,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from studies.verbs.common import add_json_option, add_set_option, print_json
-from studies.verbs.evaluate import _port
+from studies.verbs.common import add_json_option, add_set_option, port_number, print_json
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
 
@@ -30,7 +29,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="Touchstone files, or directories of *.sNp files")
     parser.add_argument("--params", metavar="FILE.csv", type=Path, required=True,
                         help="CSV: file, then one column per [space] parameter")
-    parser.add_argument("--port", type=_port, default=1, metavar="N",
+    parser.add_argument("--port", type=port_number, default=1, metavar="N",
                         help="antenna port of multi-port files (default 1)")
     add_set_option(parser)
     add_json_option(parser)

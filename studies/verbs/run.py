@@ -19,7 +19,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-from studies.verbs.common import add_json_option, add_set_option, print_json
+from studies.verbs.common import add_json_option, add_set_option, print_json, whole_number
 from sweeps.errors import ConfigError
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
@@ -40,20 +40,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                           help="show the progress bar even when stderr is not a terminal")
     progress.add_argument("--no-progress", dest="progress", action="store_false",
                           help="no progress bar")
-    parser.add_argument("--refine", type=_count, metavar="N", default=0,
+    parser.add_argument("--refine", type=whole_number, metavar="N", default=0,
                         help="after the run, add N points where the surrogate is least certain, "
                              "evaluate them and refit the surrogate (sweep studies)")
     add_json_option(parser)
 
-
-def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 (got {text!r})") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 (got {value})")
-    return value
 
 
 @contextmanager
