@@ -58,7 +58,7 @@ is told from the store, not solved again. The resumed sampler is seeded with
 
 Ctrl-C or SIGTERM stops a run cleanly: evaluations already finished are stored and told, the
 others cancelled, their trials failed and requeued at once, the lease released. The signal
-takes effect only between database transactions (see :class:`_Interrupts`).
+takes effect only between database transactions (see :mod:`studies.interrupts`).
 
 Samplers (``[optimize] algorithm``)
 -----------------------------------
@@ -77,9 +77,7 @@ from __future__ import annotations
 import importlib.util
 import itertools
 import logging
-import signal
 import sys
-import threading
 import time
 import uuid
 from collections.abc import Callable, Iterator
@@ -91,6 +89,7 @@ import numpy as np
 
 from studies.api import RunSummary, lease_options, open_study
 from studies.context import StudyContext
+from studies.interrupts import SafeInterrupts
 from studies.lease import Lease
 from studies.pareto import Goals, pareto_front
 from studies.points import Point, Record, canonical_value
@@ -268,45 +267,6 @@ def _params_of(space: Space, raw: dict[str, Any]) -> dict[str, Any] | None:
 # -- the loop -------------------------------------------------------------------------------
 
 
-class _Interrupts:
-    """Ctrl-C and SIGTERM, raised only where nothing is half-written.
-
-    While the loop waits for an evaluation the signal raises ``KeyboardInterrupt`` at once;
-    anywhere else (a store or optuna transaction, a sampler step) it only sets a flag that the
-    loop turns into ``KeyboardInterrupt`` at its next safe point. An interrupt inside a database
-    transaction could otherwise leave a pooled SQLite connection holding the write lock, and
-    the requeueing, the lease release and the next run would wait for it in vain.
-    """
-
-    def __init__(self) -> None:
-        self.requested = False
-        self.waiting = False
-
-    def _handler(self, signum: int, frame: Any) -> None:
-        self.requested = True
-        if self.waiting:
-            raise KeyboardInterrupt
-
-    def check(self) -> None:
-        """A safe point: raise the interrupt asked for since the last one."""
-        if self.requested:
-            raise KeyboardInterrupt
-
-    @contextmanager
-    def deferred(self) -> Iterator[None]:
-        """Install the handlers for SIGINT and SIGTERM (main thread only)."""
-        if threading.current_thread() is not threading.main_thread():
-            yield
-            return
-        old = {sig: signal.signal(sig, self._handler) for sig in (signal.SIGINT, signal.SIGTERM)}
-        try:
-            yield
-        finally:
-            for sig, handler in old.items():
-                signal.signal(sig, handler)
-
-
-
 @dataclass
 class _Job:
     point: Point
@@ -319,7 +279,7 @@ class _Optimizer:
 
     def __init__(self, ctx: StudyContext, store: Store, lease: Lease, storage: Any,
                  study: Any, goals: Goals, target: int, *, task: Task, max_attempts: int,
-                 interrupts: _Interrupts) -> None:
+                 interrupts: SafeInterrupts) -> None:
         self.ctx, self.store, self.lease, self.study = ctx, store, lease, study
         self.interrupts = interrupts
         self.storage = storage
@@ -531,12 +491,8 @@ class _Optimizer:
     def loop(self) -> None:
         self.fill()
         while self.jobs:
-            self.interrupts.check()
-            self.interrupts.waiting = True
-            try:
+            with self.interrupts.waiting():
                 fut = next(self.ac)
-            finally:
-                self.interrupts.waiting = False
             self.handle(fut)
             if self.lease.lost.is_set():
                 raise StoreError(f"{self.store.display_url}: study {self.ctx.name!r}: the run "
@@ -620,7 +576,7 @@ def run_optimize(ctx: StudyContext, *, fresh: bool = False, progress: bool | Non
         with Lease.acquire(store, ctx.name, command="run",
                            **lease_options(heartbeat_s, stale_after_s)) as lease:
             created, deleted = open_study(store, ctx, lease, fresh=fresh)
-            interrupts = _Interrupts()
+            interrupts = SafeInterrupts()
             storage = open_storage(ctx.store_url)
             try:
                 with interrupts.deferred():

@@ -17,8 +17,9 @@ Failures
   after ``max_attempts``, stored as ``failed`` with the reason.
 - Any other error of the cluster itself (workers that cannot import filamant, a lost scheduler)
   stops the run with everything finished so far stored; nothing is marked failed for it.
-- Ctrl-C (``KeyboardInterrupt``) stops the run: batches already finished are stored, the rest
-  are cancelled; the caller releases the lease.
+- Ctrl-C (``KeyboardInterrupt``) or SIGTERM stops the run: batches already finished are stored,
+  the rest are cancelled; the caller releases the lease. The signal takes effect only while the
+  client waits for the cluster, never inside a store transaction (:mod:`studies.interrupts`).
 """
 
 from __future__ import annotations
@@ -38,6 +39,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Literal, get_args
 
+from studies.interrupts import SafeInterrupts
 from studies.lease import Lease
 from studies.points import Point, Record
 from studies.store import Store
@@ -204,9 +206,9 @@ def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
         client = Client(cluster)
         try:
             if not settings.jobqueue:  # local workers share the terminal's Ctrl-C
-                from studies.workersignals import IgnoreSigint
+                from studies.localworkers import LocalWorkerPlugin
 
-                client.register_plugin(IgnoreSigint())
+                client.register_plugin(LocalWorkerPlugin())
             yield client
         finally:
             client.close()
@@ -400,33 +402,44 @@ def run_points(
     bar = tqdm(total=done_before + len(todo), initial=done_before, unit="pt", file=sys.stderr,
                desc=study, dynamic_ncols=True, smoothing=0.1,
                disable=(not sys.stderr.isatty()) if progress is None else not progress)
-    try:
-        submit()
-        for fut in ac:
-            batch = inflight.pop(fut)
-            handle(fut, batch)
-            if lease.lost.is_set():
-                raise StoreError(f"{store.display_url}: study {study!r}: the run lease was taken "
-                                 "over by another client; stopping")
-            submit()
-    except KeyboardInterrupt:
-        stats.interrupted = True
-        logger.warning("interrupted: storing finished batches, cancelling the rest")
-        for fut, batch in list(inflight.items()):
-            if fut.status == "finished":
-                try:
-                    handle(fut, batch)
-                except (FilamantError, OSError) as exc:  # pragma: no cover - best effort
-                    logger.warning("could not store a finished batch: %s", exc)
-        _cancel(client, list(inflight))
-    except BaseException:
-        _cancel(client, list(inflight))
-        raise
-    finally:
-        bar.close()
-        stats.elapsed_s = time.perf_counter() - t_start
-        stats.seconds_per_point = statistics.median(times) if times else None
+    interrupts = SafeInterrupts()
+    with interrupts.deferred():  # a second Ctrl-C waits for the clean-up below
+        try:
+            _drive(interrupts, ac, inflight, handle, submit, lease, store, study)
+        except KeyboardInterrupt:
+            stats.interrupted = True
+            logger.warning("interrupted: storing finished batches, cancelling the rest")
+            for fut, batch in list(inflight.items()):
+                if fut.status == "finished":
+                    try:
+                        handle(fut, batch)
+                    except (FilamantError, OSError) as exc:  # pragma: no cover - best effort
+                        logger.warning("could not store a finished batch: %s", exc)
+            _cancel(client, list(inflight))
+        except BaseException:
+            _cancel(client, list(inflight))
+            raise
+        finally:
+            bar.close()
+            stats.elapsed_s = time.perf_counter() - t_start
+            stats.seconds_per_point = statistics.median(times) if times else None
     return stats
+
+
+def _drive(interrupts: SafeInterrupts, ac: Any, inflight: dict[Any, list[Point]],
+           handle: Callable[[Any, list[Point]], None], submit: Callable[[], None],
+           lease: Lease, store: Store, study: str) -> None:
+    """Submit, then handle each batch as it completes; Ctrl-C only while waiting for one."""
+    submit()
+    while inflight:
+        with interrupts.waiting():
+            fut = next(ac)
+        handle(fut, inflight.pop(fut))
+        if lease.lost.is_set():
+            raise StoreError(f"{store.display_url}: study {study!r}: the run lease was taken "
+                             "over by another client; stopping")
+        submit()
+    interrupts.check()
 
 
 def _cancel(client: Any, futures: list[Any]) -> None:

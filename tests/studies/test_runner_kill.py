@@ -119,9 +119,11 @@ def test_sigkill_and_resume_matches_uninterrupted(tmp_path):
 
 
 def test_ctrl_c_saves_releases_and_refuses_a_second_run(tmp_path, capsys):
-    # slower designs (151 frequencies) so the run is still going while we poke it
+    # slower designs (161 segments, 151 frequencies: about 0.2 s each, 10 s for the study on
+    # two workers) so the run is surely still going while we poke it, even on a loaded machine
     cfg = write_study(tmp_path, points=120, workers=2)
-    cfg.write_text(cfg.read_text().replace("points = 11", "points = 151"))
+    cfg.write_text(cfg.read_text().replace("points = 11", "points = 151")
+                   .replace("segments = 9", "segments = 161"))
     proc = _start(cfg)
     try:
         _wait_done(cfg, 2, proc)
@@ -140,7 +142,7 @@ def test_ctrl_c_saves_releases_and_refuses_a_second_run(tmp_path, capsys):
     assert "Traceback" not in err  # the workers ignore Ctrl-C; the client stops them
     with Store(load_context(cfg).store_url, create=False) as store:
         counts = store.counts("drawer")
-        assert lease_info(store, "drawer") is None  # released
+        assert lease_info(store, "drawer") is None, err  # released
     assert 0 < counts["done"] < 120 and counts["failed"] == 0
     resumed = run_study(cfg, progress=False)
     assert resumed.evaluated == 120 - counts["done"] and resumed.done == 120

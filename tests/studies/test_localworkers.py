@@ -1,0 +1,65 @@
+"""The local-worker plugin and the interrupt gate of the client loops (studies.localworkers,
+studies.interrupts)."""
+
+from __future__ import annotations
+
+import inspect
+import logging
+import os
+import signal
+import threading
+
+import distributed.worker
+import pytest
+
+from studies.interrupts import SafeInterrupts
+from studies.localworkers import _HEARTBEAT_LOST, LocalWorkerPlugin, _DropHeartbeatLost
+
+
+def test_the_dropped_message_is_the_one_dask_logs():
+    # the filter matches by text: a dask release that rewords the message must fail here
+    assert f'"{_HEARTBEAT_LOST}.' in inspect.getsource(distributed.worker.Worker.heartbeat)
+
+
+def test_plugin_drops_only_the_shutdown_heartbeat_traceback():
+    log = logging.getLogger("distributed.worker")
+    before = list(log.filters)
+    try:
+        # off the main thread the plugin leaves SIGINT alone (this is the test process)
+        t = threading.Thread(target=LocalWorkerPlugin().setup, args=(None,))
+        t.start()
+        t.join()
+        t = threading.Thread(target=LocalWorkerPlugin().setup, args=(None,))
+        t.start()
+        t.join()
+        added = [f for f in log.filters if f not in before]
+        assert len(added) == 1 and isinstance(added[0], _DropHeartbeatLost)  # once only
+
+        def record(msg: str) -> logging.LogRecord:
+            return logging.LogRecord("distributed.worker", logging.ERROR, __file__, 1, msg,
+                                     None, None)
+
+        assert not log.filter(record(_HEARTBEAT_LOST + "."))
+        assert log.filter(record("Unexpected exception during heartbeat. Closing worker."))
+        assert log.filter(record("Worker is at 95% memory usage."))
+    finally:
+        log.filters[:] = before
+
+
+def test_interrupt_outside_waiting_is_held_to_the_next_safe_point():
+    gate = SafeInterrupts()
+    with gate.deferred():
+        os.kill(os.getpid(), signal.SIGINT)  # delivered while "writing": only noted
+        assert gate.requested
+        with pytest.raises(KeyboardInterrupt):
+            gate.check()
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # restored
+
+
+def test_interrupt_while_waiting_raises_at_once():
+    gate = SafeInterrupts()
+    with gate.deferred(), pytest.raises(KeyboardInterrupt):
+        with gate.waiting():
+            os.kill(os.getpid(), signal.SIGTERM)  # SIGTERM stops a run like Ctrl-C
+            threading.Event().wait(5.0)  # interrupted, never times out
+            pytest.fail("the wait was not interrupted")
