@@ -107,7 +107,8 @@ class StudyContext:
 
 def study_from_json(text: str) -> Any:
     """Rebuild a :class:`Study` from ``Study.canonical()`` JSON (what workers receive)."""
-    from studies.config import ParameterSpec, Study
+    from studies.config import Study
+    from studies.sections import ParameterSpec
 
     data = json.loads(text)
     data["space"] = tuple(ParameterSpec(name=k, **v) for k, v in data.get("space", {}).items())

@@ -13,16 +13,10 @@ from typing import Any
 
 from pydantic import ValidationError
 
-from studies.config import (
-    Antenna,
-    DesignConfig,
-    Feed,
-    Reader,
-    Switch,
-    SwitchLoadConfig,
-    check_value,
-)
+from studies.config import DesignConfig
 from studies.constants import VARIABLE_KEYS
+from studies.sections import Antenna, Feed, Reader, Switch, SwitchLoadConfig
+from studies.spacespec import check_value
 from studies.tomlfile import describe_validation_error, suggest
 from sweeps.design import Band as PhysBand
 from sweeps.design import Design, SwitchLoad, SwitchStates, WireSpec

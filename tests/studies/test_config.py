@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from studies import config as cfg
+from studies import sections as cfg
 from studies.config import load_design, load_study
 from studies.constants import METRIC_NAMES
 from studies.designio import (
