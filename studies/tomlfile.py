@@ -17,7 +17,7 @@ from typing import Any
 
 from pydantic import ValidationError
 
-from sweeps.errors import ConfigError
+from sweeps.errors import ConfigError, read_input_bytes
 
 __all__ = [
     "read_toml",
@@ -38,14 +38,7 @@ _TOML_POS = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
 
 def read_toml(path: Path, label: str) -> dict[str, Any]:
     """Parse the TOML file ``path``; any problem is a :class:`ConfigError` starting ``label:``."""
-    try:
-        data = path.read_bytes()
-    except FileNotFoundError:
-        raise ConfigError(f"{label}: no such file") from None
-    except IsADirectoryError:
-        raise ConfigError(f"{label}: is a directory, not a TOML file") from None
-    except OSError as exc:
-        raise ConfigError(f"{label}: cannot read ({exc.strerror or exc})") from None
+    data = read_input_bytes(path, label, "a TOML file")
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:

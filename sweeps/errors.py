@@ -7,7 +7,10 @@ style ``"<where>: <what is wrong> (got <value>); <remedy>"``. The command line t
 
 from __future__ import annotations
 
+from pathlib import Path
+
 __all__ = [
+    "read_input_bytes",
     "ConfigError",
     "FilamantError",
     "GeometryError",
@@ -39,3 +42,27 @@ class StoreError(FilamantError, RuntimeError):
 
 class TouchstoneError(FilamantError, ValueError):
     """A Touchstone file that is malformed or does not fit the request."""
+
+
+def read_input_bytes(path: Path, label: str, what: str,
+                     error: type[FilamantError] = ConfigError) -> bytes:
+    """The bytes of the input file ``path``; a missing or unreadable file raises ``error``.
+
+    Parameters
+    ----------
+    path : Path
+    label : str
+        Where the message starts (usually the path as the user gave it).
+    what : str
+        The kind of file expected, for the message ("a TOML file", "a Touchstone file").
+    error : type
+        The :class:`FilamantError` subclass to raise.
+    """
+    try:
+        return path.read_bytes()
+    except FileNotFoundError:
+        raise error(f"{label}: no such file") from None
+    except IsADirectoryError:
+        raise error(f"{label}: is a directory, not {what}") from None
+    except OSError as exc:
+        raise error(f"{label}: cannot read ({exc.strerror or exc})") from None

@@ -44,7 +44,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from sweeps.design import Reader, SwitchStates
-from sweeps.errors import FilamantError, TouchstoneError
+from sweeps.errors import FilamantError, TouchstoneError, read_input_bytes
 from sweeps.metrics import MetricSet, compute_metrics
 from sweeps.touchstone_syntax import UNIT_NAMES, UNITS, canonical_text, parse_touchstone
 
@@ -126,14 +126,7 @@ class TouchstoneData:
 
 
 def _read_text(path: Path) -> str:
-    try:
-        raw = path.read_bytes()
-    except IsADirectoryError:
-        raise TouchstoneError(f"{path}: is a directory, not a Touchstone file") from None
-    except FileNotFoundError:
-        raise TouchstoneError(f"{path}: no such file") from None
-    except OSError as exc:
-        raise TouchstoneError(f"{path}: cannot read ({exc.strerror or exc})") from None
+    raw = read_input_bytes(path, str(path), "a Touchstone file", TouchstoneError)
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError:
