@@ -11,6 +11,7 @@ from typing import Any
 __all__ = [
     "add_set_option",
     "add_json_option",
+    "add_progress_option",
     "print_json",
     "is_touchstone_path",
     "dash",
@@ -35,6 +36,16 @@ def add_json_option(parser: argparse.ArgumentParser) -> None:
     """``--json``: print one JSON object on stdout instead of the readable output."""
     parser.add_argument("--json", action="store_true",
                         help="print one JSON object on stdout instead of a table")
+
+
+def add_progress_option(parser: argparse.ArgumentParser) -> None:
+    """``--progress`` / ``--no-progress`` into ``args.progress`` (``None``: a bar only when
+    stderr is a terminal)."""
+    progress = parser.add_mutually_exclusive_group()
+    progress.add_argument("--progress", dest="progress", action="store_true", default=None,
+                          help="show the progress bar even when stderr is not a terminal")
+    progress.add_argument("--no-progress", dest="progress", action="store_false",
+                          help="no progress bar")
 
 
 def print_json(obj: Any) -> None:

@@ -15,7 +15,12 @@ import os
 import sys
 from pathlib import Path
 
-from studies.verbs.common import add_json_option, add_set_option, print_json
+from studies.verbs.common import (
+    add_json_option,
+    add_progress_option,
+    add_set_option,
+    print_json,
+)
 from sweeps.errors import ConfigError
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
@@ -54,11 +59,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="yield spec (repeatable; default resonance_mhz within 2 %% of "
                              "the target)")
     add_set_option(parser)
-    progress = parser.add_mutually_exclusive_group()
-    progress.add_argument("--progress", dest="progress", action="store_true", default=None,
-                          help="show the progress bar even when stderr is not a terminal")
-    progress.add_argument("--no-progress", dest="progress", action="store_false",
-                          help="no progress bar")
+    add_progress_option(parser)
     add_json_option(parser)
 
 

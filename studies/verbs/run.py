@@ -19,7 +19,13 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-from studies.verbs.common import add_json_option, add_set_option, print_json, whole_number
+from studies.verbs.common import (
+    add_json_option,
+    add_progress_option,
+    add_set_option,
+    print_json,
+    whole_number,
+)
 from sweeps.errors import ConfigError
 
 __all__ = ["EXAMPLE", "add_arguments", "run"]
@@ -35,11 +41,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_set_option(parser)
     parser.add_argument("--fresh", action="store_true",
                         help="delete the stored results of this study and start over")
-    progress = parser.add_mutually_exclusive_group()
-    progress.add_argument("--progress", dest="progress", action="store_true", default=None,
-                          help="show the progress bar even when stderr is not a terminal")
-    progress.add_argument("--no-progress", dest="progress", action="store_false",
-                          help="no progress bar")
+    add_progress_option(parser)
     parser.add_argument("--refine", type=whole_number, metavar="N", default=0,
                         help="after the run, add N points where the surrogate is least certain, "
                              "evaluate them and refit the surrogate (sweep studies)")
