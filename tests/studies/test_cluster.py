@@ -19,19 +19,16 @@ import pytest
 from studies.api import load_context, table_of
 from studies.context import point_evaluator
 from studies.store import Store
+from tests.studies.run_process_support import project_env
 from tests.studies.studies_store_support import write_study
 
-ROOT = Path(__file__).resolve().parents[2]
 DASK = str(Path(sys.executable).parent / "dask")
 pytestmark = [pytest.mark.cluster, pytest.mark.slow]
 
 
 def _env() -> dict[str, str]:
-    env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
     # one task per worker thread, so a dead worker takes only the batch it was running
-    env["DASK_DISTRIBUTED__SCHEDULER__WORKER_SATURATION"] = "1.0"
-    return env
+    return project_env(DASK_DISTRIBUTED__SCHEDULER__WORKER_SATURATION="1.0")
 
 
 def _spawn(args: list[str], log: Path) -> subprocess.Popen:

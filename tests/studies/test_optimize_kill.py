@@ -23,6 +23,7 @@ from studies.api import load_context, run_study
 from studies.cli import main
 from studies.lease import lease_info
 from studies.store import Store
+from tests.studies.run_process_support import killpg, run_output, start_run, wait_done
 from tests.studies.studies_store_support import postgres_url, unique_name
 from tests.studies.test_optimize_support import (
     TO_TARGET,
@@ -34,7 +35,6 @@ from tests.studies.test_optimize_support import (
     stored_points,
     write_optimize_study,
 )
-from tests.studies.test_runner_kill import _killpg, _output, _start, _wait_done
 
 C = optuna.trial.TrialState
 pytestmark = pytest.mark.slow
@@ -45,12 +45,12 @@ def _kill_mid_run(cfg: Path, at_least: int, timeout: float = 120.0) -> int:
     workers) once ``at_least`` points are done and a trial is in flight; returns the points
     done then."""
     ctx = load_context(cfg)
-    proc = _start(cfg)
+    proc = start_run(cfg)
     storage = None
     try:
         done, in_flight, t0 = 0, 0, time.time()
         while done < at_least or not in_flight:
-            assert proc.poll() is None, f"the run ended early: {_output(cfg)[1]}"
+            assert proc.poll() is None, f"the run ended early: {run_output(cfg)[1]}"
             assert time.time() - t0 < timeout, f"fewer than {at_least} points done in time"
             try:
                 with Store(ctx.store_url, create=False) as store:
@@ -64,10 +64,10 @@ def _kill_mid_run(cfg: Path, at_least: int, timeout: float = 120.0) -> int:
                 pass
             if not in_flight:
                 time.sleep(0.01)
-        _killpg(proc, signal.SIGKILL)
+        killpg(proc, signal.SIGKILL)
         proc.wait(timeout=30)
     finally:
-        _killpg(proc, signal.SIGKILL)
+        killpg(proc, signal.SIGKILL)
         if storage is not None:
             storage.engine.dispose()
     assert proc.returncode == -signal.SIGKILL
@@ -126,14 +126,14 @@ def test_ctrl_c_stores_and_requeues(tmp_path):
                                space=TWO_SPACE, workers=2)
     cfg.write_text(cfg.read_text().replace("points = 11", "points = 41"))
     ctx = load_context(cfg)
-    proc = _start(cfg)
+    proc = start_run(cfg)
     try:
-        _wait_done(cfg, 3, proc)
-        _killpg(proc, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
+        wait_done(cfg, 3, proc)
+        killpg(proc, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
         proc.wait(timeout=120)
     finally:
-        _killpg(proc, signal.SIGKILL)
-    out, err = _output(cfg)
+        killpg(proc, signal.SIGKILL)
+    out, err = run_output(cfg)
     assert proc.returncode == 130, err
     assert "interrupted" in out
     with Store(ctx.store_url, create=False) as store:

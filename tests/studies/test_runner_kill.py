@@ -8,11 +8,7 @@ deterministic (single-threaded workers), so equality is exact, not within a tole
 
 from __future__ import annotations
 
-import os
 import signal
-import subprocess
-import sys
-import time
 from pathlib import Path
 
 import numpy as np
@@ -23,54 +19,10 @@ from studies.api import load_context, run_study, table_of
 from studies.cli import main
 from studies.lease import lease_info
 from studies.store import Store
+from tests.studies.run_process_support import killpg, run_output, start_run, wait_done
 from tests.studies.studies_store_support import write_study
 
-ROOT = Path(__file__).resolve().parents[2]
 pytestmark = pytest.mark.slow
-
-
-def _env() -> dict[str, str]:
-    env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    return env
-
-
-def _start(cfg: Path, *extra: str) -> subprocess.Popen:
-    """Start ``filamant run`` in its own process group (the client and its local workers);
-    its output goes to ``<cfg>.out`` and ``<cfg>.err``."""
-    with open(cfg.with_suffix(".out"), "w") as out, open(cfg.with_suffix(".err"), "w") as err:
-        return subprocess.Popen(
-            [sys.executable, "-m", "studies.cli", "run", str(cfg), "--no-progress", *extra],
-            env=_env(), stdout=out, stderr=err, text=True, start_new_session=True)
-
-
-def _output(cfg: Path) -> tuple[str, str]:
-    return cfg.with_suffix(".out").read_text(), cfg.with_suffix(".err").read_text()
-
-
-def _wait_done(cfg: Path, at_least: int, proc: subprocess.Popen, timeout: float = 120) -> int:
-    db = cfg.parent / f"{cfg.stem}.db"
-    t0 = time.time()
-    while time.time() - t0 < timeout:
-        if proc.poll() is not None:
-            pytest.fail(f"the run ended early ({proc.returncode}): {_output(cfg)[1]}")
-        if db.exists():
-            try:
-                with Store(f"sqlite:///{db}", create=False) as store:
-                    n = store.counts(cfg.stem)["done"]
-            except Exception:  # noqa: BLE001 - tables not created yet
-                n = 0
-            if n >= at_least:
-                return n
-        time.sleep(0.05)
-    pytest.fail(f"fewer than {at_least} points done after {timeout} s")
-
-
-def _killpg(proc: subprocess.Popen, sig: int) -> None:
-    try:
-        os.killpg(proc.pid, sig)
-    except ProcessLookupError:
-        pass
 
 
 def _responses(cfg: Path) -> dict[str, tuple]:
@@ -96,13 +48,13 @@ def test_sigkill_and_resume_matches_uninterrupted(tmp_path):
     cfg = write_study(tmp_path / "killed", points=200, workers=2)
     ref = write_study(tmp_path / "ref", points=200, workers=2)
 
-    proc = _start(cfg)
+    proc = start_run(cfg)
     try:
-        done_at_kill = _wait_done(cfg, 30, proc)
-        _killpg(proc, signal.SIGKILL)  # the client and its local workers, without warning
+        done_at_kill = wait_done(cfg, 30, proc)
+        killpg(proc, signal.SIGKILL)  # the client and its local workers, without warning
         proc.wait(timeout=30)
     finally:
-        _killpg(proc, signal.SIGKILL)
+        killpg(proc, signal.SIGKILL)
     assert proc.returncode == -signal.SIGKILL
     with Store(load_context(cfg).store_url, create=False) as store:
         counts = store.counts("drawer")
@@ -124,19 +76,19 @@ def test_ctrl_c_saves_releases_and_refuses_a_second_run(tmp_path, capsys):
     cfg = write_study(tmp_path, points=120, workers=2)
     cfg.write_text(cfg.read_text().replace("points = 11", "points = 151")
                    .replace("segments = 9", "segments = 161"))
-    proc = _start(cfg)
+    proc = start_run(cfg)
     try:
-        _wait_done(cfg, 2, proc)
+        wait_done(cfg, 2, proc)
         # a second client (this test process) is refused while the first one runs
         code = main(["run", str(cfg)])
         err = capsys.readouterr().err
         assert code == 2 and "being run right now" in err, err
         assert err.count("\n") == 1  # one line
-        _killpg(proc, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
+        killpg(proc, signal.SIGINT)  # Ctrl-C reaches the whole foreground group
         proc.wait(timeout=120)
     finally:
-        _killpg(proc, signal.SIGKILL)
-    out, err = _output(cfg)
+        killpg(proc, signal.SIGKILL)
+    out, err = run_output(cfg)
     assert proc.returncode == 130, err
     assert "interrupted" in out
     assert "Traceback" not in err  # the workers ignore Ctrl-C; the client stops them
