@@ -195,13 +195,23 @@ def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
         # dask starts workers with MALLOC_TRIM_THRESHOLD_=65536, which makes glibc return
         # memory after every evaluation's temporaries: about 40 % slower per design (measured
         # with filamant bench). 64 MiB keeps the worker's heap while still trimming big frees.
+        # Setting the trim threshold also freezes glibc's mmap threshold at 128 KiB, so every
+        # frequency-stacked array (a few MB) would be a fresh mmap, page-faulted in and unmapped
+        # again: another 15-20 % per design (measured: evaluate_batch of the benchmark study in
+        # one process, with and without). 32 MiB, glibc's largest, is where the dynamic
+        # threshold of an unconfigured process ends up anyway.
         environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {}) or {})
         environ["MALLOC_TRIM_THRESHOLD_"] = 64 * 2**20
+        environ["MALLOC_MMAP_THRESHOLD_"] = 32 * 2**20
+        # No dashboard (nobody is told its address) and no statistical profiler in the
+        # workers (it samples every thread's stack every 10 ms for that dashboard, holding the
+        # GIL the evaluation needs); both cost CPU the workers share with this client.
         with dask.config.set({"distributed.scheduler.worker-saturation": 1.0,
-                              "distributed.nanny.pre-spawn-environ": environ}):
+                              "distributed.nanny.pre-spawn-environ": environ,
+                              "distributed.worker.profile.enabled": False}):
             cluster = LocalCluster(n_workers=settings.workers or default_workers(),
                                    threads_per_worker=1, processes=True,
-                                   dashboard_address=":0")
+                                   dashboard_address=None)
     try:
         client = Client(cluster)
         try:
@@ -291,6 +301,7 @@ def run_points(
     done_before: int = 0,
     max_attempts: int = 3,
     target_batch_s: float = 1.0,
+    min_batch_s: float = 0.1,
     max_batch: int = 64,
     in_flight_per_worker: int = 3,
 ) -> RunStats:
@@ -315,6 +326,10 @@ def run_points(
         Attempts per point whose worker died before it is stored as failed.
     target_batch_s : float
         Wanted wall time of one batch in s.
+    min_batch_s : float
+        Smallest wall time (s) of the batches near the end of the queue, which shrink so that
+        the workers finish together: each batch costs the client a store transaction and the
+        scheduler a round trip, a few ms, which single cheap designs would not cover.
     max_batch : int
         Largest batch.
     in_flight_per_worker : int
@@ -348,9 +363,10 @@ def run_points(
             # no timing yet: small first batches (an unknown design may take long), but not
             # single points, whose scheduling and store overhead would dominate cheap designs
             return max(1, min(4, tail))
-        per = statistics.median(times)
-        size = max(1, min(max_batch, round(target_batch_s / max(per, 1e-6))))
-        return max(1, min(size, tail))
+        per = max(statistics.median(times), 1e-6)
+        size = max(1, min(max_batch, round(target_batch_s / per)))
+        floor = max(1, round(min_batch_s / per))  # the tail's batches: no smaller than this
+        return max(1, min(size, max(tail, floor)))
 
     def submit() -> None:
         limit = slots() * in_flight_per_worker

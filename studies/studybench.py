@@ -104,9 +104,9 @@ def timed_run(ctx: StudyContext, *, warm: bool = True) -> dict[str, Any]:
 def two_worker_efficiency(quick: bool = False, designs: int = 64) -> dict[str, object]:
     """Throughput on two workers over twice the throughput on one (target >= 0.85).
 
-    The median of ``1`` (quick) or ``3`` repeats of each configuration, taken alternately.
+    The median of ``1`` (quick) or ``5`` repeats of each configuration, taken alternately.
     """
-    repeats = 1 if quick else 3
+    repeats = 1 if quick else 5
     t1: list[float] = []
     t2: list[float] = []
     with tempfile.TemporaryDirectory(prefix="filamant-bench-") as tmp:
