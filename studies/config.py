@@ -166,15 +166,19 @@ class Study(DesignConfig):
         """What :meth:`plan_fingerprint` hashes: everything that changes the plan or a solve.
 
         That is ``antenna``, ``feed``, ``switch``, ``band``, ``space``, ``sampler``,
-        ``optimize`` and the solver settings with the solver version. ``study`` (name, store),
-        ``cluster`` and ``surrogate`` never change a result; ``reader`` changes only
-        ``read_range_m`` and is hashed separately by :meth:`metrics_fingerprint`.
+        ``optimize`` but its ``trials`` and the solver settings with the solver version.
+        ``study`` (name, store), ``cluster`` and ``surrogate`` never change a result; ``reader``
+        changes only ``read_range_m`` and is hashed separately by :meth:`metrics_fingerprint`.
+        ``optimize.trials`` is only where the optimizer stops: raising it and running again
+        continues the same study with more trials.
         """
         from studies.designio import solver_settings
 
         canon = self.canonical()
         content = {k: canon[k] for k in ("antenna", "feed", "switch", "band", "space",
                                          "sampler", "optimize")}
+        if content["optimize"] is not None:
+            content["optimize"] = {k: v for k, v in content["optimize"].items() if k != "trials"}
         content["solver"] = _sorted(solver_settings(self).fingerprint())
         return content
 

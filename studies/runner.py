@@ -209,9 +209,11 @@ def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
         with dask.config.set({"distributed.scheduler.worker-saturation": 1.0,
                               "distributed.nanny.pre-spawn-environ": environ,
                               "distributed.worker.profile.enabled": False}):
+            # the scheduler's small HTTP server (health, metrics) still starts: on a free port,
+            # not dask's fixed 8787, which another cluster on this machine may hold
             cluster = LocalCluster(n_workers=settings.workers or default_workers(),
                                    threads_per_worker=1, processes=True,
-                                   dashboard_address=None)
+                                   dashboard_address=":0", scheduler_kwargs={"dashboard": False})
     try:
         client = Client(cluster)
         try:

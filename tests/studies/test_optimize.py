@@ -33,6 +33,7 @@ from studies.points import Point
 from studies.runner import evaluate_batch
 from studies.space import Space
 from studies.store import Store
+from sweeps.errors import StoreError
 from sweeps.evaluate import evaluate
 from tests.studies.test_optimize_support import (
     TO_TARGET,
@@ -305,6 +306,28 @@ def test_resume_marks_running_trials_failed_and_asks_them_again(tmp_path):
     assert all(p["status"] == "done" and p["attempts"] == 1 for p in points.values())
     assert len(points) == 3
     check_trials_match_points(cfg, ["resonance_mhz"])
+
+
+def test_raising_trials_continues_the_same_study(tmp_path):
+    """``optimize.trials`` is only the stopping point: 6 trials, then 10 on the same store, is
+    one study of 10 complete trials, the first 6 kept (not re-evaluated), no point twice."""
+    cfg = write_optimize_study(tmp_path, TO_TARGET.format(trials=6),
+                               space="length_mm = {min = 140, max = 170}")
+    first = run_study(cfg, progress=False)
+    assert first.trials["complete"] == 6
+    before = stored_points(cfg)
+    cfg.write_text(cfg.read_text().replace("trials = 6", "trials = 10"))
+    more = run_study(cfg, progress=False)
+    assert not more.created and more.trials["complete"] == 10
+    after = stored_points(cfg)
+    assert set(before) <= set(after)
+    assert all(after[pid]["attempts"] == 1 for pid in after)  # the first 6 not evaluated again
+    assert more.evaluated == len(after) - len(before)
+    check_trials_match_points(cfg, ["resonance_mhz"])
+    # another objective is another study: still refused
+    cfg.write_text(cfg.read_text().replace('goal = "min"', 'goal = "max"'))
+    with pytest.raises(StoreError, match="optimize.objectives"):
+        run_study(cfg, progress=False)
 
 
 # -- refusals -------------------------------------------------------------------------------
