@@ -159,10 +159,13 @@ def fit_study(
     *,
     folds: int = DEFAULT_FOLDS,
     seed: int = 0,
-    progress: Callable[[str], None] | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
     path: str | os.PathLike[str] | None = None,
 ) -> FitOutcome:
-    """Fit the study's surrogate from its stored results and save it beside the config."""
+    """Fit the study's surrogate from its stored results and save it beside the config.
+
+    ``progress(done, total, message)``: see :func:`surrogates.fit.fit_surrogate`.
+    """
     table, counts = done_table(ctx)
     if table.empty:
         raise StoreError(f"study {ctx.name!r}: no evaluated point yet "

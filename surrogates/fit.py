@@ -99,7 +99,7 @@ def fit_surrogate(
     params: Mapping[str, Mapping[str, Any]] | None = None,
     plan_fingerprint: str | None = None,
     meta: Mapping[str, Any] | None = None,
-    progress: Callable[[str], None] | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
 ) -> Surrogate:
     """Cross-validate, choose and fit one model per target of ``dataset``.
 
@@ -120,7 +120,8 @@ def fit_surrogate(
     meta : mapping, optional
         Extra provenance to keep (study name, ...).
     progress : callable, optional
-        Called with a short message before each model fit (for a progress display).
+        ``progress(done, total, message)`` before each model fit (a fit and its
+        cross-validation) and ``progress(total, total, "")`` at the end, for a progress bar.
 
     Returns
     -------
@@ -131,15 +132,20 @@ def fit_surrogate(
         if k not in MODEL_CLASSES:
             raise ConfigError(f"surrogate: settings given for unknown model kind {k!r}")
     targets: dict[str, TargetModel] = {}
-    for name, td in dataset.targets.items():
+    plan: dict[str, list[str]] = {}
+    for name in dataset.targets:
         choice = model.get(name, "auto") if isinstance(model, Mapping) else model
         check_model_choice(choice)
-        kinds = list(MODEL_CLASSES) if choice == "auto" else [choice]
+        plan[name] = list(MODEL_CLASSES) if choice == "auto" else [choice]
+    total, done = sum(len(k) for k in plan.values()), 0
+    for name, td in dataset.targets.items():
+        kinds = plan[name]
         cands: dict[str, CVScores] = {}
         fitted: dict[str, Any] = {}
         for kind in kinds:
             if progress:
-                progress(f"{name}: fitting {kind} on {len(td.y)} points and cross-validating")
+                progress(done, total, f"{name}: {kind} on {len(td.y)} points")
+            done += 1
             kp = dict(params.get(kind, {}))
             fitted[kind] = make_model(kind, seed, **kp).fit(td.X, td.y)
             cands[kind] = cv_scores(kind, td.X, td.y, folds=folds, seed=seed,
@@ -156,6 +162,8 @@ def fit_surrogate(
             n_dropped=td.n_dropped, y_min=float(td.y.min()), y_max=float(td.y.max()),
             y_std=float(np.std(td.y)) or 1.0, X_null=td.X_null,
         )
+    if progress:
+        progress(total, total, "")
     info = {"model": dict(model) if isinstance(model, Mapping) else model, "folds": folds,
             "seed": seed, "n_rows": dataset.n_rows}
     info.update(meta or {})

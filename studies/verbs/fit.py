@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from typing import Any
 
 from studies.verbs.common import add_json_option, add_set_option, dash, print_json
 
@@ -43,16 +44,23 @@ def run(args: argparse.Namespace) -> int:
     if args.folds < 2:
         raise ConfigError(f"--folds must be >= 2 (got {args.folds})")
     ctx = load_context(args.study, args.set)
-    show = not args.json and sys.stderr.isatty()
+    from tqdm import tqdm
 
-    def progress(msg: str) -> None:
-        if show:
-            sys.stderr.write(f"\rfilamant: fit: {msg[:70]:<70}")
-            sys.stderr.flush()
+    # one step per model fitted and cross-validated; on a terminal only, like `run`'s bar
+    bars: list[Any] = []
 
-    res = fit_study(ctx, folds=args.folds, seed=args.seed, progress=progress)
-    if show:
-        sys.stderr.write("\r" + " " * 86 + "\r")
+    def progress(done: int, total: int, msg: str) -> None:
+        if not bars:
+            bars.append(tqdm(total=total, unit="model", file=sys.stderr, desc="fit",
+                             dynamic_ncols=True, disable=args.json or not sys.stderr.isatty()))
+        bars[0].n = done
+        bars[0].set_postfix_str(msg, refresh=True)
+
+    try:
+        res = fit_study(ctx, folds=args.folds, seed=args.seed, progress=progress)
+    finally:
+        for bar in bars:
+            bar.close()
     sur = res.surrogate
     if args.json:
         print_json({

@@ -144,3 +144,21 @@ def test_boosting_rebuild_refuses_broken_tree_links():
     left[np.flatnonzero(left >= 0)[0]] = len(left) + 7
     with pytest.raises(ValueError, match="tree links"):
         BoostingSurrogate.from_state(params, dict(arrays, left=left))
+
+
+def test_fit_reports_one_step_per_model_then_the_end(analytic_table):
+    """``progress(done, total, message)``: "auto" fits every kind for each target; the bar of
+    `filamant fit` counts those fits and ends at its total."""
+    from surrogates.dataset import build_dataset
+    from surrogates.fit import fit_surrogate
+    from tests.surrogates.conftest import ANALYTIC_FEATURES
+
+    calls = []
+    ds = build_dataset(analytic_table.iloc[:40], ANALYTIC_FEATURES,
+                       ["resonance_mhz", "efficiency"])
+    fit_surrogate(ds, {"resonance_mhz": "auto", "efficiency": "gp"}, seed=0, folds=2,
+                  progress=lambda *a: calls.append(a))
+    total = len(MODEL_CLASSES) + 1
+    assert [c[:2] for c in calls] == [(i, total) for i in range(total)] + [(total, total)]
+    assert calls[0][2].startswith("resonance_mhz: ") and calls[-2][2].startswith("efficiency: gp")
+    assert calls[-1][2] == ""
