@@ -7,6 +7,10 @@ next run then wait for that lock in vain (the busy timeout is 30 s). So a client
 ``KeyboardInterrupt`` at once; anywhere else (a store or optuna transaction, a sampler step) it
 only sets a flag, which the loop turns into ``KeyboardInterrupt`` at its next safe point
 (:meth:`SafeInterrupts.check`).
+
+Every write transaction of the store (:meth:`studies.store.Store.write`) also holds the two
+signals back until it has committed or rolled back (:func:`held_signals`), so an import, a
+refinement, the lease itself or any later caller cannot be caught half-way either.
 """
 
 from __future__ import annotations
@@ -17,7 +21,9 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-__all__ = ["SafeInterrupts"]
+__all__ = ["SafeInterrupts", "held_signals"]
+
+_SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
 
 class SafeInterrupts:
@@ -59,3 +65,35 @@ class SafeInterrupts:
         finally:
             for sig, handler in old.items():
                 signal.signal(sig, handler)
+
+
+@contextmanager
+def held_signals() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM back for the block, then deliver them to the handlers before it.
+
+    Main thread only (Python runs signal handlers there; elsewhere a no-op). A signal that came
+    during the block is raised again with :func:`signal.raise_signal` once the block is over
+    and the previous handlers are back: ``KeyboardInterrupt`` right after the block, a
+    :class:`SafeInterrupts` flag, or the default action of SIGTERM.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = {sig: signal.getsignal(sig) for sig in _SIGNALS}
+    if any(h is None for h in old.values()):  # a handler not set from Python: leave it be
+        yield
+        return
+    got: list[int] = []
+
+    def hold(signum: int, frame: Any) -> None:
+        got.append(signum)
+
+    for sig in _SIGNALS:
+        signal.signal(sig, hold)
+    try:
+        yield
+    finally:
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+        for sig in dict.fromkeys(got):
+            signal.raise_signal(sig)

@@ -66,6 +66,7 @@ from sqlalchemy import (
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, IntegrityError, OperationalError, SQLAlchemyError
 
+from studies.interrupts import held_signals
 from studies.points import Point, Record
 from sweeps import metrics as _metrics
 from sweeps.errors import StoreError
@@ -288,8 +289,14 @@ class Store:
 
     @contextmanager
     def write(self) -> Iterator[Connection]:
-        """One write transaction (``BEGIN IMMEDIATE`` on SQLite); commits on success."""
-        with self.engine.connect().execution_options(filamant_write=True) as conn:
+        """One write transaction (``BEGIN IMMEDIATE`` on SQLite); commits on success.
+
+        Ctrl-C and SIGTERM wait until the transaction has committed or rolled back
+        (:func:`studies.interrupts.held_signals`): an interrupt inside it could leave a pooled
+        SQLite connection holding the write lock.
+        """
+        with held_signals(), \
+                self.engine.connect().execution_options(filamant_write=True) as conn:
             with conn.begin():
                 yield conn
 

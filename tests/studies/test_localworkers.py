@@ -1,5 +1,5 @@
-"""The local-worker plugin and the interrupt gate of the client loops (studies.localworkers,
-studies.interrupts)."""
+"""The local-worker plugin, the interrupt gate of the client loops and the signals held during
+store writes (studies.localworkers, studies.interrupts)."""
 
 from __future__ import annotations
 
@@ -63,3 +63,33 @@ def test_interrupt_while_waiting_raises_at_once():
             os.kill(os.getpid(), signal.SIGTERM)  # SIGTERM stops a run like Ctrl-C
             threading.Event().wait(5.0)  # interrupted, never times out
             pytest.fail("the wait was not interrupted")
+
+
+def test_ctrl_c_inside_a_store_write_comes_after_the_commit(tmp_path):
+    """The CI failure this guards against: an interrupt inside an SQLite write left the pooled
+    connection holding the lock, and the lease release then waited out the busy timeout."""
+    import socket
+    import sqlite3
+    import time
+
+    from studies.lease import lease_info
+    from studies.store import Store, lease_table
+
+    db = tmp_path / "s.db"
+    store = Store(f"sqlite:///{db}")
+    now = time.time()
+    with pytest.raises(KeyboardInterrupt):
+        with store.write() as conn:
+            os.kill(os.getpid(), signal.SIGINT)  # Ctrl-C in the middle of the transaction
+            conn.execute(lease_table.insert().values(
+                study="s", owner="me", host=socket.gethostname(), pid=os.getpid(),
+                proc_start="0", command="run", started_at=now, heartbeat_at=now))
+        pytest.fail("the held Ctrl-C was not delivered after the block")
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+    assert lease_info(store, "s").owner == "me"  # committed before the interrupt
+    # and no lock is left behind: another connection takes the write lock at once
+    other = sqlite3.connect(db, timeout=0.5, isolation_level=None)
+    other.execute("BEGIN IMMEDIATE")
+    other.execute("ROLLBACK")
+    other.close()
+    store.close()
