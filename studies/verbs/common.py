@@ -72,12 +72,14 @@ def format_number(value: float) -> str:
     return f"{value:.5g}"
 
 
-def whole_number(text: str, what: str = "a whole number") -> int:
-    """argparse type: an integer >= 1 (``what`` names it in the message)."""
+def whole_number(text: str, what: str = "a whole number", most: int | None = None) -> int:
+    """argparse type: an integer >= 1, and <= ``most`` if given (``what`` names it)."""
     try:
         value = int(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"must be {what} >= 1 (got {text!r})") from None
+    if most is not None and not 1 <= value <= most:
+        raise argparse.ArgumentTypeError(f"must be 1 to {most} (got {value})")
     if value < 1:
         raise argparse.ArgumentTypeError(f"must be {what} >= 1 (got {value})")
     return value

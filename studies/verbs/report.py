@@ -20,6 +20,7 @@ from studies.verbs.common import (
     add_progress_option,
     add_set_option,
     print_json,
+    whole_number,
 )
 from sweeps.errors import ConfigError
 
@@ -29,13 +30,7 @@ EXAMPLE = "filamant report studies/examples/drawer_study.toml --out drawer-repor
 
 
 def _count(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if not 1 <= n <= 10:
-        raise argparse.ArgumentTypeError(f"must be 1 to 10 (got {n})")
-    return n
+    return whole_number(text, most=10)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
