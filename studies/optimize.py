@@ -93,7 +93,7 @@ from studies.interrupts import SafeInterrupts
 from studies.lease import Lease
 from studies.pareto import Goals, pareto_front
 from studies.points import Point, Record, canonical_value
-from studies.runner import ClusterError, Task, evaluate_batch, open_client
+from studies.runner import ClusterError, Task, WorkerThreads, evaluate_batch, open_client
 from studies.space import Space
 from studies.store import METRIC_COLUMNS, Store, display_url
 from sweeps.errors import ConfigError, FilamantError, StoreError
@@ -304,6 +304,7 @@ class _Optimizer:
         self.bar: Any = None
         self.ac: Any = None
         self.client: Any = None
+        self.threads: Callable[[], int] = lambda: 0
 
     # state of the store and of optuna at start
 
@@ -370,7 +371,7 @@ class _Optimizer:
     # asking
 
     def slots(self) -> int:
-        n = sum(self.client.nthreads().values())
+        n = self.threads()
         self.workers = max(self.workers, n)
         return max(1, n)
 
@@ -641,7 +642,7 @@ def _drive(opt: _Optimizer, progress: bool | None, described: str) -> bool:
         logger.info("study %r: %d of %d trial(s) to complete with %s on %s", ctx.name,
                     opt.target - opt.complete, opt.target, described, ctx.cluster.describe())
         with open_client(ctx.cluster) as client:
-            opt.client, opt.ac = client, as_completed()
+            opt.client, opt.ac, opt.threads = client, as_completed(), WorkerThreads(client)
             try:
                 opt.loop()
             except KeyboardInterrupt:

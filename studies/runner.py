@@ -35,7 +35,7 @@ import time
 import uuid
 from collections import deque
 from collections.abc import Callable, Iterator, Mapping, Sequence
-from contextlib import contextmanager
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Literal, get_args
 
@@ -45,8 +45,8 @@ from studies.points import Point, Record
 from studies.store import Store
 from sweeps.errors import ConfigError, FilamantError, StoreError
 
-__all__ = ["ClusterSettings", "JobSystem", "RunStats", "evaluate_batch", "make_jobqueue_cluster",
-           "open_client", "run_points", "default_workers"]
+__all__ = ["ClusterSettings", "JobSystem", "RunStats", "WorkerThreads", "evaluate_batch",
+           "make_jobqueue_cluster", "open_client", "run_points", "default_workers"]
 
 logger = logging.getLogger(__name__)
 
@@ -124,11 +124,7 @@ def make_jobqueue_cluster(options: Mapping[str, Any]) -> tuple[Any, int]:
                           f"{', '.join(get_args(JobSystem))} (got {system or 'nothing'!r})")
     if int(jobs) != jobs or jobs < 1:
         raise ConfigError(f"cluster.jobqueue.jobs: must be a whole number >= 1 (got {jobs!r})")
-    try:
-        import dask_jobqueue
-    except ImportError:
-        raise ConfigError("cluster.jobqueue: needs the dask-jobqueue package "
-                          "(pip install 'filamant[jobqueue]')") from None
+    dask_jobqueue = _import_jobqueue()
     cls = getattr(dask_jobqueue, _JOBQUEUE_CLASSES[system])
     known = _jobqueue_options(cls)
     unknown = sorted(k for k in opts if k not in known)
@@ -148,6 +144,29 @@ def make_jobqueue_cluster(options: Mapping[str, Any]) -> tuple[Any, int]:
         raise ConfigError(f"cluster.jobqueue: {_JOBQUEUE_CLASSES[system]} rejected the options: "
                           f"{exc}") from None
     return cluster, int(jobs)
+
+
+def _import_jobqueue() -> Any:
+    """``dask_jobqueue``, imported without its replacement of this process's Ctrl-C handler.
+
+    Importing ``dask_jobqueue.runner`` sets SIGINT to ``sys.exit`` for the whole process (seen
+    in dask-jobqueue 0.9), which would turn a later Ctrl-C into ``SystemExit`` outside a run.
+    """
+    import signal
+    import threading
+
+    main = threading.current_thread() is threading.main_thread()
+    old = signal.getsignal(signal.SIGINT) if main else None
+    try:
+        import dask_jobqueue
+        import dask_jobqueue.core  # noqa: F401 - the modules that set the handler, imported now
+    except ImportError:
+        raise ConfigError("cluster.jobqueue: needs the dask-jobqueue package "
+                          "(pip install 'filamant[jobqueue]')") from None
+    finally:
+        if old is not None:
+            signal.signal(signal.SIGINT, old)
+    return dask_jobqueue
 
 
 def _jobqueue_options(cls: type) -> set[str]:
@@ -184,48 +203,67 @@ def open_client(settings: ClusterSettings, *, connect_timeout_s: float = 15.0
         finally:
             client.close()
         return
-    if settings.jobqueue:
-        cluster, jobs = make_jobqueue_cluster(settings.jobqueue)
-        cluster.scale(jobs=jobs)
-    else:
-        import dask
+    with ExitStack() as stack:
+        if settings.jobqueue:
+            cluster, jobs = make_jobqueue_cluster(settings.jobqueue)
+            cluster.scale(jobs=jobs)
+        else:
+            import dask
 
-        # one task per worker thread at a time: a worker that dies was running exactly the
-        # batch it is blamed for (dask counts every task on a dead worker as suspicious)
-        # dask starts workers with MALLOC_TRIM_THRESHOLD_=65536, which makes glibc return
-        # memory after every evaluation's temporaries: about 40 % slower per design (measured
-        # with filamant bench). 64 MiB keeps the worker's heap while still trimming big frees.
-        # Setting the trim threshold also freezes glibc's mmap threshold at 128 KiB, so every
-        # frequency-stacked array (a few MB) would be a fresh mmap, page-faulted in and unmapped
-        # again: another 15-20 % per design (measured: evaluate_batch of the benchmark study in
-        # one process, with and without). 32 MiB, glibc's largest, is where the dynamic
-        # threshold of an unconfigured process ends up anyway.
-        environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {}) or {})
-        environ["MALLOC_TRIM_THRESHOLD_"] = 64 * 2**20
-        environ["MALLOC_MMAP_THRESHOLD_"] = 32 * 2**20
-        # No dashboard (nobody is told its address) and no statistical profiler in the
-        # workers (it samples every thread's stack every 10 ms for that dashboard, holding the
-        # GIL the evaluation needs); both cost CPU the workers share with this client.
-        with dask.config.set({"distributed.scheduler.worker-saturation": 1.0,
-                              "distributed.nanny.pre-spawn-environ": environ,
-                              "distributed.worker.profile.enabled": False}):
+            # held while the cluster lives: the scheduler and nannies in this process read
+            # some of these settings after start-up
+            stack.enter_context(dask.config.set(_local_cluster_config()))
             # the scheduler's small HTTP server (health, metrics) still starts: on a free port,
             # not dask's fixed 8787, which another cluster on this machine may hold
             cluster = LocalCluster(n_workers=settings.workers or default_workers(),
                                    threads_per_worker=1, processes=True,
                                    dashboard_address=":0", scheduler_kwargs={"dashboard": False})
-    try:
+        stack.callback(cluster.close)
         client = Client(cluster)
-        try:
-            if not settings.jobqueue:  # local workers share the terminal's Ctrl-C
-                from studies.localworkers import LocalWorkerPlugin
+        stack.callback(client.close)
+        if not settings.jobqueue:  # local workers share the terminal's Ctrl-C
+            from studies.localworkers import LocalWorkerPlugin
 
-                client.register_plugin(LocalWorkerPlugin())
-            yield client
-        finally:
-            client.close()
-    finally:
-        cluster.close()
+            client.register_plugin(LocalWorkerPlugin())
+        yield client
+
+
+def _local_cluster_config() -> dict[str, Any]:
+    """dask settings of the local cluster (one worker process per core on this machine)."""
+    import dask
+
+    # dask starts workers with MALLOC_TRIM_THRESHOLD_=65536, which makes glibc return
+    # memory after every evaluation's temporaries: about 40 % slower per design (measured
+    # with filamant bench). 64 MiB keeps the worker's heap while still trimming big frees.
+    # Setting the trim threshold also freezes glibc's mmap threshold at 128 KiB, so every
+    # frequency-stacked array (a few MB) would be a fresh mmap, page-faulted in and unmapped
+    # again: another 15-20 % per design (measured: evaluate_batch of the benchmark study in
+    # one process, with and without). 32 MiB, glibc's largest, is where the dynamic
+    # threshold of an unconfigured process ends up anyway.
+    environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {}) or {})
+    environ["MALLOC_TRIM_THRESHOLD_"] = 64 * 2**20
+    environ["MALLOC_MMAP_THRESHOLD_"] = 32 * 2**20
+    return {
+        # one task per worker thread at a time: a worker that dies was running exactly the
+        # batch it is blamed for (dask counts every task on a dead worker as suspicious)
+        "distributed.scheduler.worker-saturation": 1.0,
+        "distributed.nanny.pre-spawn-environ": environ,
+        # No dashboard (nobody is told its address) and no statistical profiler in the
+        # workers (it samples every thread's stack every 10 ms for that dashboard, holding
+        # the GIL the evaluation needs); both cost CPU the workers share with this client.
+        "distributed.worker.profile.enabled": False,
+        # For the same reason the housekeeping timers run less often: the event-loop health
+        # tick (20 ms by default; it only feeds "event loop unresponsive" warnings), the
+        # resource monitor (dashboard figures), the memory monitor (an RSS read per process
+        # every 100 ms; once a second still stops a runaway worker long before it fills this
+        # machine's memory) and work stealing (with one task per worker thread at a time
+        # there is nothing to steal). Measured with two idle workers over 4 s: this process
+        # 70 -> 8 ms of CPU per second, each worker 23 -> 3 ms.
+        "distributed.admin.tick.interval": "1s",
+        "distributed.admin.system-monitor.interval": "5s",
+        "distributed.worker.memory.monitor-interval": "1s",
+        "distributed.scheduler.work-stealing": False,
+    }
 
 
 # -- the worker side ------------------------------------------------------------------------
@@ -284,6 +322,30 @@ class RunStats:
     seconds_per_point: float | None = None
     workers: int = 0
     batch_sizes: list[int] = field(default_factory=list)
+
+
+class WorkerThreads:
+    """The cluster's worker-thread count, asked of the scheduler at most every ``max_age_s``.
+
+    Each ask is a round trip through the scheduler, whose CPU local workers share; asking for
+    every batch (twice) was about a quarter of this process's CPU in a 64-design run on two
+    local workers (measured, ``filamant bench``). Workers that join or leave (an adaptive or
+    batch-job cluster) are seen within ``max_age_s``.
+    """
+
+    def __init__(self, client: Any, max_age_s: float = 1.0) -> None:
+        self.client = client
+        self.max_age_s = max_age_s
+        self._n = 0
+        self._at = -math.inf
+
+    def __call__(self) -> int:
+        """Worker threads now (as of at most ``max_age_s`` ago)."""
+        now = time.monotonic()
+        if now - self._at > self.max_age_s:
+            self._n = sum(self.client.nthreads().values())
+            self._at = now
+        return self._n
 
 
 class ClusterError(ConfigError):
@@ -354,8 +416,10 @@ def run_points(
     ac = as_completed()
     tag = uuid.uuid4().hex[:8]
 
+    threads = WorkerThreads(client)
+
     def slots() -> int:
-        n = sum(client.nthreads().values())
+        n = threads()
         stats.workers = max(stats.workers, n)
         return max(1, n)
 

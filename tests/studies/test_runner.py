@@ -104,6 +104,23 @@ def test_jobqueue_cluster_construction_only():
     assert "--nworkers 4" in script and "--nthreads 1" in script  # single-threaded workers
 
 
+def test_jobqueue_import_keeps_the_ctrl_c_handler():
+    """dask-jobqueue sets SIGINT to sys.exit when imported; a jobqueue cluster must not leave
+    this process's Ctrl-C raising SystemExit (a fresh interpreter: the import happens once)."""
+    import subprocess
+    import sys
+
+    code = ("import signal\n"
+            "from studies.runner import make_jobqueue_cluster\n"
+            "c, _ = make_jobqueue_cluster({'system': 'slurm', 'cores': 1, 'memory': '1GB'})\n"
+            "c.close()\n"
+            "assert signal.getsignal(signal.SIGINT) is signal.default_int_handler\n")
+    root = Path(__file__).resolve().parents[2]
+    done = subprocess.run([sys.executable, "-c", code], cwd=root, capture_output=True,
+                          text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]
+
+
 def test_jobqueue_bad_options():
     with pytest.raises(ConfigError, match="cluster.jobqueue.system"):
         make_jobqueue_cluster({"system": "cron"})

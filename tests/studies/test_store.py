@@ -278,3 +278,29 @@ def test_lease_race_has_one_winner(url):
             p.join(timeout=30)
     assert results == ["refused"] * 3 + ["won"]
     assert len(held) == 1
+
+
+@pytest.mark.parametrize("array", [
+    np.linspace(8e8, 1e9, 101), np.ones((101, 1, 1), complex) * (73 + 42j), np.array([50.0]),
+    np.zeros(0), np.arange(6, dtype=np.int32).reshape(2, 3).T, np.array([[1.5 - 2j]]),
+])
+def test_stored_array_bytes_are_numpys_own_npy_format(array):
+    """The store's array encoding (built-once headers) gives exactly the bytes of ``np.save``,
+    so any numpy can read a store (reference: numpy's own .npy writer, NEP 1)."""
+    import io
+
+    from studies.store import decode_array, encode_array
+
+    buf = io.BytesIO()
+    np.save(buf, np.ascontiguousarray(array), allow_pickle=False)
+    assert encode_array(array) == buf.getvalue()
+    assert encode_array(array) == buf.getvalue()  # the cached header again
+    back = decode_array(encode_array(array))
+    assert back.dtype == array.dtype and np.array_equal(back, array)
+
+
+def test_object_arrays_are_refused_not_pickled():
+    from studies.store import encode_array
+
+    with pytest.raises(ValueError, match="allow_pickle"):
+        encode_array(np.array([object()]))
