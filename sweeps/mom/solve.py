@@ -239,29 +239,54 @@ class Solver:
     ) -> NDArray[np.complex128]:
         """Currents induced by a 1 V/m plane wave, with loads across the ports.
 
+        One factorisation per frequency serves the plane wave and every port, and then any
+        number of load states by port-impedance algebra, with no further solve: with the
+        short-circuit currents ``I_sc = Z^-1 V_inc``, the port currents ``I_p = Z^-1 E`` and
+        ``Y = E^T I_p``, the currents with loads ``Z_L`` across the ports,
+        ``(Z + E Z_L E^T) I = V_inc``, are
+
+            ``I = I_sc - I_p Z_L (1 + Y Z_L)^-1 E^T I_sc``
+
+        (the Woodbury identity, G. H. Golub & C. F. Van Loan, *Matrix Computations*, 4th ed.,
+        Johns Hopkins 2013, sec. 2.1.4; from memory), which holds for a short (``Z_L = 0``) and
+        tends to the open port as ``Z_L`` grows.
+
         Parameters
         ----------
         f_hz : array_like, shape (F,)
         k_hat, pol : ndarray, shape (3,)
             Propagation direction and polarisation of the incident wave.
-        port_loads_ohm : ndarray, shape (F, P) or (P,), optional
-            Impedance connected across each port's gap (0: short circuit, the default). An open
-            port is represented by a very large impedance.
+        port_loads_ohm : ndarray, shape (P,), (F, P) or (S, F, P), optional
+            Impedance connected across each port's gap (0: short circuit, the default); a
+            leading axis of ``S`` load states (the switch's two contact states, say) gives
+            the currents of every state from the same solve. An open port is represented by a
+            very large impedance.
 
         Returns
         -------
-        ndarray, shape (F, N)
+        ndarray, shape (F, N), or (S, F, N) for loads of shape (S, F, P)
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
-        z_efie, z_extra = self.matrices(f)
-        z_tot = z_efie + z_extra
-        e = self.mesh.port_vectors
-        if port_loads_ohm is not None:
-            zl = np.broadcast_to(np.asarray(port_loads_ohm, dtype=complex), (len(f), e.shape[1]))
-            z_tot = z_tot + np.einsum("np,fp,mp->fnm", e, zl, e)
+        z_tot = self.fill.matrix(f)
+        e = self.mesh.port_vectors  # (N, P)
         k_hat = np.asarray(k_hat, dtype=float)
         pol = np.asarray(pol)
-        rhs = np.stack([
-            plane_wave_rhs(self.points, 2.0 * math.pi * fi / C0, k_hat, pol) for fi in f
-        ])
-        return np.linalg.solve(z_tot, rhs[..., None])[..., 0]
+        rhs = np.empty((len(f), e.shape[0], e.shape[1] + 1), dtype=complex)
+        rhs[:, :, :-1] = e
+        for i, fi in enumerate(f):
+            rhs[i, :, -1] = plane_wave_rhs(self.points, 2.0 * math.pi * fi / C0, k_hat, pol)
+        cur = np.linalg.solve(z_tot, rhs)  # (F, N, P + 1): the ports, then the plane wave
+        i_sc = cur[:, :, -1]
+        if port_loads_ohm is None:
+            return i_sc
+        zl = np.asarray(port_loads_ohm, dtype=complex)
+        states = zl.ndim == 3
+        zl = np.broadcast_to(zl if states else zl[None], (zl.shape[0] if states else 1,
+                                                          len(f), e.shape[1]))
+        i_p = cur[:, :, :-1]  # (F, N, P)
+        y = e.T @ i_p  # (F, P, P)
+        v = i_sc @ e  # (F, P): short-circuit port currents
+        m = np.eye(e.shape[1]) + y[None] * zl[:, :, None, :]  # 1 + Y Z_L, (S, F, P, P)
+        w = np.linalg.solve(m, np.broadcast_to(v, zl.shape)[..., None])[..., 0]
+        out = i_sc[None] - np.einsum("fnp,sfp->sfn", i_p, zl * w)
+        return out if states else out[0]

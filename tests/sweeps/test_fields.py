@@ -8,7 +8,7 @@ import pytest
 from sweeps.closedform import small_loop_resistance
 from sweeps.geometry import CrossSection, Load, Port, Structure, Wire
 from sweeps.materials import C0
-from sweeps.mom.fields import CurrentPoints, radiation_vector, rcs
+from sweeps.mom.fields import CurrentPoints, plane_wave_rhs, radiation_vector, rcs
 from sweeps.mom.solve import Solver
 
 F0 = 300e6
@@ -97,6 +97,35 @@ def test_open_circuited_dipole_scatters_little():
     back = np.array([[-1.0, 0, 0]])
     assert rcs(solver.points, opened, k, back)[0, 0] < 0.05 * rcs(solver.points, shorted, k,
                                                                     back)[0, 0]
+
+
+def test_loaded_scattering_from_one_solve_matches_the_loaded_matrix():
+    """Loads across two ports by port-impedance algebra (Woodbury identity, Golub & Van Loan,
+    Matrix Computations, sec. 2.1.4; from memory) against solving ``Z + E Z_L E^T`` itself."""
+    w1 = Wire(np.array([[0, 0, -0.25 * LAM], [0, 0, 0.1 * LAM], [0.05 * LAM, 0, 0.2 * LAM]]),
+              CrossSection.round_wire(1e-3 * LAM), 3e4)
+    w2 = straight([0.15 * LAM, 0.02 * LAM, -0.2 * LAM], [0.15 * LAM, 0.02 * LAM, 0.22 * LAM])
+    solver = Solver(Structure([w1, w2], ports=[Port([0, 0, -0.05 * LAM], gap_m=0.004 * LAM),
+                                               Port([0.15 * LAM, 0.02 * LAM, 0.1 * LAM])]),
+                    1.2 * F0)
+    f = np.array([0.9, 1.0, 1.1]) * F0
+    k_hat = np.array([1.0, 0.2, 0.1]) / np.linalg.norm([1.0, 0.2, 0.1])
+    pol = np.cross(k_hat, [0, 1.0, 0])
+    pol /= np.linalg.norm(pol)
+    states = np.array([[[0.0, 50.0]] * 3,  # short, 50 ohm
+                       [[1e7, 20 - 300j]] * 3,  # (almost) open, a capacitive load
+                       [[5 + 80j, 0.0]] * 3])
+    got = solver.scatter(f, k_hat, pol, states)  # (3 states, 3 frequencies, N)
+    e = solver.mesh.port_vectors
+    z = solver.fill.matrix(f)
+    v_inc = np.stack([plane_wave_rhs(solver.points, 2 * math.pi * fi / C0, k_hat, pol)
+                      for fi in f])
+    for s_, zl in enumerate(states):
+        loaded = z + np.einsum("np,fp,mp->fnm", e, zl, e)
+        want = np.linalg.solve(loaded, v_inc[..., None])[..., 0]
+        np.testing.assert_allclose(got[s_], want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
+        np.testing.assert_allclose(solver.scatter(f, k_hat, pol, zl), got[s_], rtol=1e-12,
+                                   atol=1e-15)
 
 
 def loop_deviation(circ_l):
