@@ -107,13 +107,31 @@ class MatrixFill:
         k = self.pairs.size
         index = self.pairs.index
         itype = index.dtype  # int32 unless the structure is huge: smaller, faster maps
-        # column of every shape pair (p, i), (q, j) in the per-group integrals (transposed for
-        # p > q), and of every pair of charge elements (segments, then end caps)
-        upper = np.triu(np.ones((s, s), dtype=bool))[:, None, :, None]
-        ii = np.arange(2, dtype=itype)[None, :, None, None]
-        jj = np.arange(2, dtype=itype)[None, None, None, :]
-        shape_cols = ((4 * index)[:, None, :, None]
-                      + np.where(upper, 2 * ii + jj, 2 * jj + ii)).reshape(2 * s, 2 * s)
+        # one matrix for both potentials: columns [4K shape integrals | charge integrals] and
+        # eight entries per row m N + n, [potential, a, b] for the pairs of halves (a, b) of
+        # bases m and n (zeros kept: an end-cap half carries no axial current; duplicate columns
+        # in a row add up in the product), so that a source scaled by j omega mu and
+        # 1/(j omega eps) gives Z. Each of the four blocks is formed over all pairs of halves,
+        # (2N, 2N) indexed [2m + a, 2n + b] (numpy is slow on short innermost axes), and then
+        # written to its place in the rows.
+        self._n_vector_src = 4 * k
+        vals = np.empty((n, n, 2, 2, 2))
+        cols = np.empty((n, n, 2, 2, 2), dtype=itype)
+
+        def put(out: NDArray, full: NDArray) -> None:
+            out[...] = full.reshape(n, 2, n, 2).transpose(0, 2, 1, 3)
+
+        seg = mesh.half_seg.ravel()  # (2N,): [2m + a]; int64, as are the flat indices below
+        shape = mesh.half_shape.ravel().astype(itype)
+        # shape pair (p, i), (q, j): column 4 index[p, q] + 2 i + j, transposed for p > q
+        col = index.take(seg[:, None] * s + seg[None, :])
+        col *= 4
+        col += np.where(seg[:, None] <= seg[None, :], 2 * shape[:, None] + shape[None, :],
+                        shape[:, None] + 2 * shape[None, :])
+        put(cols[:, :, 0], col)
+        tvec = (mesh.seg_dir[mesh.half_seg] * mesh.half_sign[:, :, None]).reshape(2 * n, 3)
+        put(vals[:, :, 0], tvec @ tvec.T)
+        # charge elements: segments, then end caps; their pair columns follow the 4K
         elem_cols = np.empty((s + c, s + c), dtype=itype)
         elem_cols[:s, :s] = index
         if c:
@@ -121,26 +139,11 @@ class MatrixFill:
             elem_cols[s:, :s] = cap_seg
             elem_cols[:s, s:] = cap_seg.T
             elem_cols[s:, s:] = (k + c * s + np.arange(c * c, dtype=itype)).reshape(c, c)
-        # one matrix for both potentials: columns [4K shape integrals | charge integrals] and
-        # eight entries per row m N + n, one per pair of halves (a, b) of bases m and n for each
-        # potential (zeros kept: an end-cap half carries no axial current; duplicate columns in
-        # a row add up in the product), so that a source scaled by j omega mu and
-        # 1/(j omega eps) gives Z. Written in place: no (N, N)-sized temporaries pile up.
-        self._n_vector_src = 4 * k
-        vals = np.empty((n, n, 8))
-        cols = np.empty((n, n, 8), dtype=itype)
-        half = (2 * mesh.half_seg + mesh.half_shape).astype(itype)  # (N, 2) shape index
-        tvec = mesh.seg_dir[mesh.half_seg] * mesh.half_sign[:, :, None]  # (N, 2, 3)
-        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).astype(itype)
-        div = mesh.half_div
-        for a in range(2):
-            for b in range(2):
-                t = 2 * a + b
-                cols[:, :, t] = shape_cols[np.ix_(half[:, a], half[:, b])]
-                vals[:, :, t] = tvec[:, a] @ tvec[:, b].T
-                cols[:, :, 4 + t] = elem_cols[np.ix_(elem[:, a], elem[:, b])]
-                cols[:, :, 4 + t] += 4 * k
-                vals[:, :, 4 + t] = np.outer(div[:, a], div[:, b])
+        elem_cols += 4 * k
+        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).ravel()
+        put(cols[:, :, 1], elem_cols.take(elem[:, None] * (s + c) + elem[None, :]))
+        div = mesh.half_div.ravel()
+        put(vals[:, :, 1], np.outer(div, div))
         indptr = np.arange(0, 8 * n * n + 1, 8, dtype=np.int32 if 8 * n * n < 2**31 else np.int64)
         self._amap = csr_matrix((vals.reshape(-1), cols.reshape(-1), indptr),
                                 shape=(n * n, 4 * k + k + c * s + c * c))
