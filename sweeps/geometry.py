@@ -474,32 +474,31 @@ def _point_segment_distance(
     return float(np.linalg.norm(a + t * d - p)), t
 
 
-def _closest_distance(a0: list, d1: list, b0: list, d2: list) -> NDArray[np.float64]:
+def _closest_distance(a0: NDArray[np.float64], d1: NDArray[np.float64], b0: NDArray[np.float64],
+                      d2: NDArray[np.float64]) -> NDArray[np.float64]:
     """Classic closest-points-of-two-segments algorithm on broadcastable component arrays.
 
-    ``a0, b0`` start points and ``d1, d2`` direction vectors (end minus start), each a list of
-    three arrays (x, y, z). Clamped parameters with re-projection; elementwise, so all-pairs and
-    pair-by-pair evaluations give identical numbers.
+    ``a0, b0`` start points and ``d1, d2`` direction vectors (end minus start), each of shape
+    ``(3, ...)`` (x, y, z first). Clamped parameters with re-projection; elementwise (the sums
+    over the components run x + y + z in that order either way), so all-pairs and pair-by-pair
+    evaluations give identical numbers.
     """
-    r = [a0[i] - b0[i] for i in range(3)]
-    a = d1[0] * d1[0] + d1[1] * d1[1] + d1[2] * d1[2]
-    e = d2[0] * d2[0] + d2[1] * d2[1] + d2[2] * d2[2]
-    f = d2[0] * r[0] + d2[1] * r[1] + d2[2] * r[2]
-    c = d1[0] * r[0] + d1[1] * r[1] + d1[2] * r[2]
-    b = d1[0] * d2[0] + d1[1] * d2[1] + d1[2] * d2[2]
+    add = np.add.reduce
+    r = a0 - b0
+    a = add(d1 * d1, axis=0)
+    e = add(d2 * d2, axis=0)
+    f = add(d2 * r, axis=0)
+    c = add(d1 * r, axis=0)
+    b = add(d1 * d2, axis=0)
     denom = a * e - b * b
     with np.errstate(divide="ignore", invalid="ignore"):
         s = np.where(denom > 1e-14 * a * e, np.clip((b * f - c * e) / denom, 0.0, 1.0), 0.0)
         t = (b * s + f) / e
-    t_c = np.clip(t, 0.0, 1.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
+        t_c = np.clip(t, 0.0, 1.0)
         s = np.where(t < 0.0, np.clip(-c / a, 0.0, 1.0), np.where(t > 1.0,
                      np.clip((b - c) / a, 0.0, 1.0), s))
-    sq = 0.0
-    for i in range(3):
-        gap = (a0[i] + s * d1[i]) - (b0[i] + t_c * d2[i])
-        sq = sq + gap * gap
-    return np.sqrt(sq)
+    gap = (a0 + s * d1) - (b0 + t_c * d2)
+    return np.sqrt(add(gap * gap, axis=0))
 
 
 def segment_distances(
@@ -511,11 +510,9 @@ def segment_distances(
     Vectorised form of the classic closest-points-of-two-segments algorithm (clamped parameters,
     re-projection), shape ``(len(a0), len(b0))``.
     """
-    # one (n, m) array per Cartesian component: no reductions over a short last axis
-    return _closest_distance([a0[:, i][:, None] for i in range(3)],
-                             [(a1[:, i] - a0[:, i])[:, None] for i in range(3)],
-                             [b0[:, i][None, :] for i in range(3)],
-                             [(b1[:, i] - b0[:, i])[None, :] for i in range(3)])
+    # components first, (3, n, 1) against (3, 1, m): no reductions over a short last axis
+    return _closest_distance(a0.T[:, :, None], (a1 - a0).T[:, :, None], b0.T[:, None, :],
+                             (b1 - b0).T[:, None, :])
 
 
 def paired_segment_distances(
@@ -526,8 +523,7 @@ def paired_segment_distances(
 
     The same numbers as the matching entries of :func:`segment_distances`.
     """
-    return _closest_distance([a0[:, i] for i in range(3)], [a1[:, i] - a0[:, i] for i in range(3)],
-                             [b0[:, i] for i in range(3)], [b1[:, i] - b0[:, i] for i in range(3)])
+    return _closest_distance(a0.T, (a1 - a0).T, b0.T, (b1 - b0).T)
 
 
 def segments_within(
