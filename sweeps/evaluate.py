@@ -165,7 +165,7 @@ def evaluate(
     structure = build_structure(design)
     solver = Solver(structure, band.stop_hz, settings)
     f = band.f_hz
-    on_grid = np.isclose(f, band.target_hz, rtol=1e-12, atol=0.0)
+    on_grid = np.abs(f - band.target_hz) <= 1e-12 * abs(band.target_hz)  # np.isclose, rtol 1e-12
     if on_grid.any():
         f_all = f
         it = int(np.argmax(on_grid))
