@@ -273,6 +273,8 @@ class MatrixFill:
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         n = self.n_unknowns
+        n_vec = self._n_vector_src
+        n_pairs = self.pairs.size
         out = np.empty((len(f), n, n), dtype=complex)
         step = self._chunk()
         for i0 in range(0, len(f), step):
@@ -280,12 +282,19 @@ class MatrixFill:
             k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
             jwmu = 1j * 2.0 * np.pi * f[sl] * MU0
             jweps_inv = 1.0 / (1j * 2.0 * np.pi * f[sl] * EPS0)
-            dyn = self._dyn.pair_integrals(k)  # (F, K, 5)
-            vector = dyn[:, :, :4].reshape(len(k), -1) + self._static_vector_src
-            vector *= jwmu[:, None]
-            charge = self._charge_sources(k, dyn) + self._static_charge_src
-            charge *= jweps_inv[:, None]
-            out[sl] = self._assemble(vector, charge).reshape(-1, n, n)
+            pairs, caps = self._dyn.columns(k)  # (F, K, 5), (F, C S + C^2)
+            # the source, one complex column per frequency: viewed as real it is the (re, im)
+            # column pairs the assembly matrix multiplies
+            src = np.empty((self._amap.shape[1], len(k)), dtype=complex)
+            src[:n_vec] = pairs[:, :, :4].reshape(len(k), n_vec).T
+            src[n_vec: n_vec + n_pairs] = pairs[:, :, 4].T
+            src[n_vec + n_pairs:] = caps.T
+            src[:n_vec] += self._static_vector_src[:, None]
+            src[:n_vec] *= jwmu[None, :]
+            src[n_vec:] += self._static_charge_src[:, None]
+            src[n_vec:] *= jweps_inv[None, :]
+            z = self._amap @ src.view(float)  # (N*N, 2F): columns re, im of each frequency
+            out[sl] = z.view(complex).T.reshape(-1, n, n)
         return out
 
     def efie(

@@ -502,6 +502,42 @@ class DynamicPoints:
         rc, ic = _dynamic_kernel(k, self.cap_cap_r, INV4PI / self.cap_cap_r)
         return re + 1j * im, rc + 1j * ic
 
+    def columns(self, k: NDArray[np.float64]
+                ) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
+        """Every dynamic integral for wavenumbers ``k``: pair groups and end caps together.
+
+        Returns the pair groups, (F, K, 5), as :meth:`pair_integrals`, and the end caps,
+        (F, C S + C^2), the flattened cap-segment then cap-cap integrals of
+        :meth:`cap_integrals` (the same numbers); the kernel runs once over all point pairs.
+        """
+        k = np.atleast_1d(np.asarray(k, dtype=float))
+        if not hasattr(self, "_r_all"):
+            r = [self.r.reshape(-1)]
+            if hasattr(self, "cap_r"):
+                r += [self.cap_r.reshape(-1), self.cap_cap_r.reshape(-1)]
+            self._r_all = np.concatenate(r)
+            self._inv4pir_all = INV4PI / self._r_all
+        re, im = _dynamic_kernel(k, self._r_all, self._inv4pir_all)  # (F, P) each
+        n_f = len(k)
+        n_k, q2 = self.r.shape
+        end = n_k * q2
+        pairs = np.empty((n_f, n_k, 5), dtype=complex)
+        pairs.real = re[:, :end].reshape(n_f, n_k, q2) @ self.weights
+        pairs.imag = im[:, :end].reshape(n_f, n_k, q2) @ self.weights
+        pairs *= self.scale[None, :, None]
+        if hasattr(self, "cap_r"):
+            c = self.cap_r.shape[0]
+            cs = c * self.s
+            stop = end + self.cap_r.size
+            caps = np.empty((n_f, cs + c * c), dtype=complex)
+            for part, dst in ((re, caps.real), (im, caps.imag)):
+                dst[:, :cs] = (part[:, end:stop].reshape(n_f, c, -1) * self.cap_weights).reshape(
+                    n_f, cs, self.q).sum(axis=-1)
+                dst[:, cs:] = part[:, stop:]
+        else:
+            caps = np.empty((n_f, 0), dtype=complex)
+        return pairs, caps
+
     def pair_integrals(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Dynamic integrals of every pair group for wavenumbers ``k`` (1/m): (F, K, 5).
 
