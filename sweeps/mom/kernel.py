@@ -93,6 +93,38 @@ def _lambda(u: NDArray[np.float64]) -> NDArray[np.float64]:
     return np.stack([1.0 - u, u], axis=-1)
 
 
+def _frozen(*arrays: NDArray) -> tuple[NDArray, ...]:
+    for a in arrays:
+        a.setflags(write=False)
+    return arrays
+
+
+@lru_cache(maxsize=16)
+def _shape_rule(n: int, graded: bool = False) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Nodes ``u`` (Q,) and weighted shapes ``lambda(u) w`` (Q, 2) of a Gauss rule on [0, 1]
+    (plain or graded, :mod:`sweeps.mom.quadrature`); fixed by the rule, so formed once."""
+    u, w = graded_gauss01(n) if graded else gauss01(n)
+    return _frozen(u, _lambda(u) * w[:, None])
+
+
+@lru_cache(maxsize=16)
+def _ring_rule(n: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Weights and ``(2 sin(phi/2))^2`` of the ring average of the exact kernel (``n`` points)."""
+    tphi, wphi = start_graded_gauss01(n)
+    phi = np.pi * tphi  # (1/pi) int_0^pi dphi = int_0^1 dt
+    return _frozen(wphi, (2.0 * np.sin(0.5 * phi)) ** 2)
+
+
+@lru_cache(maxsize=16)
+def _point_pair_weights(q: int) -> NDArray[np.float64]:
+    """Weights (Q^2, 5) of the point pairs (u, v) of a ``q``-point Gauss rule on both segments:
+    the four shape pairs (i, j), then the charge (the plain product ``w_u w_v``)."""
+    _, w = gauss01(q)
+    _, lam_w = _shape_rule(q)
+    lam2 = np.einsum("ui,vj->uvij", lam_w, lam_w).reshape(q**2, 4)
+    return _frozen(np.column_stack([lam2, np.outer(w, w).reshape(-1)]))[0]
+
+
 def line_integrals(
     r: NDArray[np.float64],
     q0: NDArray[np.float64],
@@ -341,8 +373,7 @@ def static_pair_integrals(
     far = np.flatnonzero(~pairs.near)
     if len(far):
         p, q = pairs.p[far], pairs.q[far]
-        u, w = gauss01(rules.static_far)
-        lam_w = _lambda(u) * w[:, None]  # (Q, 2)
+        u, lam_w = _shape_rule(rules.static_far)  # (Q,), (Q, 2)
         pp = starts[p][:, None, :] + u[None, :, None] * (ends - starts)[p][:, None, :]
         pq = starts[q][:, None, :] + u[None, :, None] * (ends - starts)[q][:, None, :]
         d2 = 0.0
@@ -357,11 +388,9 @@ def static_pair_integrals(
     near = np.flatnonzero(pairs.near)
     if len(near):
         rows, cols = pairs.p[near], pairs.q[near]
-        uo, wo = graded_gauss01(rules.near_outer)
+        uo, lam_o = _shape_rule(rules.near_outer, graded=True)  # (K,), (K, 2)
         if kernel == "exact":
-            tphi, wphi = start_graded_gauss01(rules.near_phi)
-            phi = np.pi * tphi  # (1/pi) int_0^pi dphi = int_0^1 dt
-            ring2 = (2.0 * np.sin(0.5 * phi)) ** 2  # times a^2
+            wphi, ring2 = _ring_rule(rules.near_phi)  # ring2 times a^2
         else:
             wphi = np.ones(1)
             ring2 = np.ones(1)
@@ -374,7 +403,6 @@ def static_pair_integrals(
         rho2 = a2[:, None, None] * ring2[None, None, :]
         j0, j1 = line_integrals(r_out[:, :, None, :], q0, tq, lq, rho2)  # (n, K, P)
         jbar = np.stack([j0 @ wphi, j1 @ wphi], axis=-1)  # (n, K, 2)
-        lam_o = _lambda(uo) * wo[:, None]  # (K, 2)
         vals = (lam_o.T @ jbar) * (INV4PI * length[rows])[:, None, None]
         # a self pair is stored transposed (as the full-matrix fill always did)
         diag = rows == cols
@@ -452,22 +480,22 @@ class DynamicPoints:
         self.s = len(starts)
         self.q = rules.dynamic
         u, w = gauss01(self.q)
-        self.lam_w = _lambda(u) * w[:, None]  # (Q, 2)
+        self.lam_w = _shape_rule(self.q)[1]  # (Q, 2)
         length = rownorm(ends - starts)
         pts = starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]  # (S, Q, 3)
         p, q = pairs.p, pairs.q
         fac = 2.0 if kernel == "exact" else 1.0
         d2 = 0.0
+        pts_p, pts_q = pts[p], pts[q]
         for c in range(3):
-            dc = pts[p][:, :, None, c] - pts[q][:, None, :, c]
+            dc = pts_p[:, :, None, c] - pts_q[:, None, :, c]
             d2 = d2 + dc * dc
         extra2 = fac * 0.5 * (radius[p] ** 2 + radius[q] ** 2)
         self.r = np.sqrt(d2 + extra2[:, None, None]).reshape(len(p), -1)  # (K, Q^2)
         self.inv4pir = INV4PI / self.r
         # weights of the point pairs (u, v) for the four shape pairs (i, j) and for the charge
         # (sum over the shapes: w_u w_v): (Q^2, 5), times L_p L_q of each group
-        lam2 = np.einsum("ui,vj->uvij", self.lam_w, self.lam_w).reshape(self.q**2, 4)
-        self.weights = np.column_stack([lam2, np.outer(w, w).reshape(-1)])
+        self.weights = _point_pair_weights(self.q)
         self.scale = length[p] * length[q]  # (K,)
         self.length = length
         self.w = w
