@@ -470,8 +470,22 @@ def _point_segment_distance(
 ) -> tuple[float, float]:
     """Distance from point ``p`` to segment ``ab`` and the parameter ``t`` of the closest point."""
     d = b - a
-    t = float(np.clip(np.dot(p - a, d) / np.dot(d, d), 0.0, 1.0))
-    return float(np.linalg.norm(a + t * d - p)), t
+    t = min(max(float(np.dot(p - a, d) / np.dot(d, d)), 0.0), 1.0)
+    return _norm(a + t * d - p), t
+
+
+def _norm(v: NDArray[np.float64]) -> float:
+    """``np.linalg.norm`` of a real vector (the same ``sqrt(v . v)``), without its overhead."""
+    return math.sqrt(float(v.dot(v)))
+
+
+def _unit_steps(n: int) -> NDArray[np.float64]:
+    """``np.linspace(0, 1, n + 1)`` for ``n >= 1``, computed the same way (``i * (1 / n)``, the
+    last point exactly 1), without its argument handling."""
+    u = np.arange(n + 1, dtype=float)
+    u *= 1.0 / n
+    u[-1] = 1.0
+    return u
 
 
 def _closest_distance(a0: NDArray[np.float64], d1: NDArray[np.float64], b0: NDArray[np.float64],
@@ -666,7 +680,7 @@ class Structure:
                     "wire"
                 )
             pi, t = hit
-            L = np.linalg.norm(pieces[pi][2] - pieces[pi][1])
+            L = _norm(pieces[pi][2] - pieces[pi][1])
             if t * L > tol and (1 - t) * L > tol:
                 pieces[pi][3].append(t)
         for wi, pos in endpoints:
@@ -674,7 +688,7 @@ class Structure:
                 if wj == wi:
                     continue
                 d, t = _point_segment_distance(pos, a0, a1)
-                L = np.linalg.norm(a1 - a0)
+                L = _norm(a1 - a0)
                 if d <= tol and t * L > tol and (1 - t) * L > tol:
                     cuts.append(t)
 
@@ -690,12 +704,12 @@ class Structure:
             for t0, t1 in zip(ts[:-1], ts[1:], strict=True):
                 p0 = a0 + t0 * (a1 - a0)
                 p1 = a0 + t1 * (a1 - a0)
-                L = float(np.linalg.norm(p1 - p0))
+                L = _norm(p1 - p0)
                 if w.segments is not None:
                     n = max(1, round(w.segments * L / wire_len[wi]))
                 else:
                     n = max(rules.min_segments_per_piece, math.ceil(L / target - 1e-9))
-                u = np.linspace(0.0, 1.0, n + 1)[:, None]
+                u = _unit_steps(n)[:, None]
                 sub_pts.append(p0 + u * (p1 - p0))
                 sub_wire.append(wi)
                 sub_piece.append(pi)
@@ -905,25 +919,27 @@ def _bases(
     n = len(inc)
     # "in" half: current toward the node on s_in (+t with shape u when the node is its end)
     # "out" half: current away from the node on s_out (+t with shape 1-u when it is its start)
-    half_seg = np.stack([s_in, np.where(cap, s_in, s_out)], axis=1)
-    half_shape = np.stack([end_in, np.where(cap, 0, end_out)], axis=1)
-    sign_in = np.where(end_in == 1, 1, -1)
-    half_sign = np.stack([sign_in, np.where(cap, 0, np.where(end_out == 0, 1, -1))], axis=1)
-    half_div = np.stack([1.0 / seg_len[s_in], np.where(cap, -1.0, -1.0 / seg_len[s_out])],
-                        axis=1)
-    cap_index = np.cumsum(cap) - 1
-    half_cap = np.stack([np.full(n, -1), np.where(cap, cap_index, -1)], axis=1)
+    half_seg, half_shape, half_sign, half_cap = np.empty((4, n, 2), dtype=np.int64)
+    half_seg[:, 0] = s_in
+    half_seg[:, 1] = np.where(cap, s_in, s_out)
+    half_shape[:, 0] = end_in
+    half_shape[:, 1] = np.where(cap, 0, end_out)
+    half_sign[:, 0] = 2 * end_in - 1  # +1 when the node is the end of s_in
+    half_sign[:, 1] = np.where(cap, 0, 1 - 2 * end_out)  # +1 when it is the start of s_out
+    half_div = np.empty((n, 2))
+    half_div[:, 0] = 1.0 / seg_len[s_in]
+    half_div[:, 1] = np.where(cap, -1.0, -1.0 / seg_len[s_out])
+    half_cap[:, 0] = -1
+    half_cap[:, 1] = np.where(cap, np.cumsum(cap) - 1, -1)
     cap_nodes = node[cap]
     cap_radius = seg_radius[s_in[cap]].astype(float)
     node_first_basis = np.full(n_nodes, -1, dtype=np.int64)
     inner = np.flatnonzero(~cap)
     on = node[inner]  # in node order: the first inner basis of a node starts its run
-    first_inner = inner[np.r_[True, on[1:] != on[:-1]]] if len(inner) else inner
+    first_inner = inner[np.concatenate(([True], on[1:] != on[:-1]))] if len(inner) else inner
     node_first_basis[node[first_inner]] = first_inner
-    return (half_seg.astype(np.int64), half_shape.astype(np.int64),
-            half_sign.astype(np.int64), half_div, half_cap.astype(np.int64),
-            node.astype(np.int64), cap_nodes.astype(np.int64), cap_radius, node_first_basis,
-            degree)
+    return (half_seg, half_shape, half_sign, half_div, half_cap, node.astype(np.int64),
+            cap_nodes.astype(np.int64), cap_radius, node_first_basis, degree)
 
 
 def _gap_vector(mesh: Mesh, basis: int, gap_m: float) -> NDArray[np.float64]:

@@ -211,8 +211,8 @@ class MatrixFill:
         order = np.argsort(seg, kind="stable")
         m_idx, h_idx, seg = m_idx[order], h_idx[order], seg[order]
         # every ordered pair of halves on the same segment (groups of equal `seg`)
-        starts = np.flatnonzero(np.r_[True, seg[1:] != seg[:-1]])
-        sizes = np.diff(np.r_[starts, len(seg)])
+        starts = np.flatnonzero(np.concatenate(([True], seg[1:] != seg[:-1])))
+        sizes = np.diff(starts, append=len(seg))
         size_of = np.repeat(sizes, sizes)  # group size of each half
         first_of = np.repeat(starts, sizes)  # group start of each half
         left = np.repeat(np.arange(len(seg)), size_of)
