@@ -238,19 +238,26 @@ def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np
     return first, inverse.reshape(-1)
 
 
-def _unique_columns(columns: list[NDArray[np.int64]]) -> tuple[NDArray, NDArray]:
-    """:func:`_unique_rows` of the rows formed by ``columns`` (equal-length integer arrays),
-    without forming the (rows, columns) array: one hash per row, verified column by column."""
-    h = np.zeros(len(columns[0]), dtype=np.uint64)
-    for c, col in enumerate(columns):
-        h += col.astype(np.int64).view(np.uint64) * _HASH[c]
-    _, first, inverse = np.unique(h, return_index=True, return_inverse=True)
+def _unique_columns(keys: NDArray[np.int64]) -> tuple[NDArray, NDArray]:
+    """:func:`_unique_rows` of the columns of a (C, M) integer array (the key parts of each of
+    M rows stored component by component): one hash per column, verified in one comparison.
+
+    The groups are numbered in the order of their hashes and ``first`` is the first column of
+    each, as ``np.unique(h, return_index=True, return_inverse=True)`` gives them.
+    """
+    h = _HASH[: keys.shape[0]] @ keys.view(np.uint64)  # wraps modulo 2^64, as intended
+    order = np.argsort(h, kind="stable")
+    h = h[order]
+    new = np.empty(len(h), dtype=bool)
+    new[:1] = True
+    np.not_equal(h[1:], h[:-1], out=new[1:])
     del h
-    inverse = inverse.reshape(-1)
-    rep = first[inverse]
-    if all(np.array_equal(col[rep], col) for col in columns):
+    first = order[new]
+    inverse = np.empty(len(order), dtype=np.intp)
+    inverse[order] = np.cumsum(new) - 1
+    if np.array_equal(keys[:, first[inverse]], keys):
         return first, inverse
-    return _unique_rows(np.column_stack(columns))  # a hash collision: exact sort
+    return _unique_rows(keys.T)  # a hash collision: exact sort
 
 
 @lru_cache(maxsize=16)
@@ -311,18 +318,20 @@ class PairTable:
         delta = ends - starts
         length = rownorm(delta)
         pts = np.concatenate([starts, ends])
-        res = 1e-12 * max(float(np.max(np.ptp(pts, axis=0))), 1e-300)
+        res = 1e-12 * max(float(np.max(pts.max(axis=0) - pts.min(axis=0))), 1e-300)  # np.ptp
         feat = np.rint(np.column_stack([length / res, radius / res,
                                         delta / length[:, None] * 1e12])).astype(np.int64)
         _, cls = _unique_rows(feat)  # segments alike up to translation
         rows, cols = _triu(s)
-        columns = [cls[rows], cls[cols]]
-        columns += [np.rint((starts[cols, i] - starts[rows, i]) / res).astype(np.int64)
-                    for i in range(3)]  # the offset between the two segments
+        keys = np.empty((5 if near is None else 6, len(rows)), dtype=np.int64)
+        keys[0] = cls[rows]
+        keys[1] = cls[cols]
+        # the offset between the two segments
+        keys[2:5] = np.rint((starts[cols] - starts[rows]) / res).T
         if near is not None:
-            columns.append(near[rows, cols].astype(np.int64))
-        first, group = _unique_columns(columns)
-        del columns
+            keys[5] = near[rows, cols]
+        first, group = _unique_columns(keys)
+        del keys
         self.p = rows[first]
         self.q = cols[first]
         if near is not None:
