@@ -456,9 +456,9 @@ def _check_inputs(f_hz: NDArray[np.float64], zin: NDArray[np.complex128], target
         raise ConfigError(
             f"metrics: f_hz and zin must be 1-D of equal length (got {f_hz.shape}, {zin.shape})"
         )
-    if not (np.all(np.isfinite(f_hz)) and np.all(np.isfinite(zin))):
+    if not (np.isfinite(f_hz).all() and np.isfinite(zin).all()):
         raise ConfigError("metrics: frequencies and impedances must be finite")
-    if np.any(np.diff(f_hz) <= 0) or f_hz[0] <= 0:
+    if (f_hz[1:] <= f_hz[:-1]).any() or f_hz[0] <= 0:  # np.diff(f_hz) <= 0
         raise ConfigError("metrics: frequencies must be positive and strictly increasing")
     if not (f_hz[0] * (1 - 1e-12) <= target_hz <= f_hz[-1] * (1 + 1e-12)):
         raise ConfigError(
