@@ -386,16 +386,20 @@ def impedance_slope(
     w_at = 2.0 * np.pi * at_hz
     m = min(points, n)
     idx = np.sort(np.argsort(np.abs(w - w_at), kind="stable")[:m])
-    h = float(np.mean(np.diff(w[idx])))
-    u = (w[idx] - w_at) / h
+    w_win = w[idx]
+    h = float((w_win[1:] - w_win[:-1]).sum() / (m - 1))  # the mean spacing
+    u = (w_win - w_at) / h
+    z_win = np.asarray(z)[idx]
+    # the powers of u once for both fits (np.vander's columns are the same for any degree)
+    powers = np.vander(u, min(5, m - 1) + 1, increasing=True)
 
     def fit(degree: int) -> tuple[complex, complex]:
         deg = min(degree, m - 1)
-        vander = np.vander(u, deg + 1, increasing=True)
+        vander = np.ascontiguousarray(powers[:, : deg + 1])
         if m > deg + 1:  # least squares by the normal equations (u is scaled: well conditioned)
-            coef = np.linalg.solve(vander.T @ vander, vander.T @ z[idx])
+            coef = np.linalg.solve(vander.T @ vander, vander.T @ z_win)
         else:
-            coef, *_ = np.linalg.lstsq(vander, z[idx], rcond=None)
+            coef, *_ = np.linalg.lstsq(vander, z_win, rcond=None)
         return complex(coef[0]), complex(coef[1] / h)
 
     z_at, slope = fit(3)
