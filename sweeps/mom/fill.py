@@ -212,7 +212,9 @@ class MatrixFill:
         m_idx, h_idx, seg = m_idx[order], h_idx[order], seg[order]
         # every ordered pair of halves on the same segment (groups of equal `seg`)
         starts = np.flatnonzero(np.concatenate(([True], seg[1:] != seg[:-1])))
-        sizes = np.diff(starts, append=len(seg))
+        sizes = np.empty_like(starts)
+        sizes[:-1] = starts[1:] - starts[:-1]
+        sizes[-1] = len(seg) - starts[-1]
         size_of = np.repeat(sizes, sizes)  # group size of each half
         first_of = np.repeat(starts, sizes)  # group start of each half
         left = np.repeat(np.arange(len(seg)), size_of)

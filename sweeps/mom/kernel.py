@@ -41,7 +41,7 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import NDArray
 
-from sweeps.geometry import rownorm
+from sweeps.geometry import paired_segment_distances, rownorm
 from sweeps.mom.quadrature import gauss01, graded_gauss01, start_graded_gauss01
 
 __all__ = ["KernelRules", "PairTable", "static_integrals", "static_pair_integrals",
@@ -203,8 +203,6 @@ def group_near(
 ) -> NDArray[np.bool_]:
     """Near-field switch for the segment pairs ``(p[k], q[k])``: the rule of :func:`near_pairs`
     with the relative margin :data:`NEAR_MARGIN` (closest distance up to the threshold)."""
-    from sweeps.geometry import paired_segment_distances
-
     length = rownorm(ends - starts)
     limit = np.maximum(rules.near_lengths * np.maximum(length[p], length[q]),
                        rules.near_radii * np.maximum(radius[p], radius[q]))
@@ -220,6 +218,20 @@ _HASH = np.random.default_rng(20261201).integers(1, 2**63, size=64, dtype=np.int
     np.uint64) | np.uint64(1)
 
 
+def _hash_groups(h: NDArray[np.uint64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """``np.unique(h, return_index=True, return_inverse=True)[1:]`` without its wrapper: the
+    first index of each distinct value (groups numbered in increasing order of value) and the
+    group of every entry. (The hashes are sums modulo 2^64, wrapping as intended.)"""
+    order = np.argsort(h, kind="stable")
+    h = h[order]
+    new = np.empty(len(h), dtype=bool)
+    new[:1] = True
+    np.not_equal(h[1:], h[:-1], out=new[1:])
+    inverse = np.empty(len(order), dtype=np.intp)
+    inverse[order] = np.cumsum(new) - 1
+    return order[new], inverse
+
+
 def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
     """First occurrence of each distinct row of an integer array and the group of every row.
 
@@ -228,9 +240,7 @@ def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np
     """
     keys = np.ascontiguousarray(keys, dtype=np.int64)
     if keys.shape[1] <= len(_HASH):
-        h = keys.view(np.uint64) @ _HASH[: keys.shape[1]]
-        _, first, inverse = np.unique(h, return_index=True, return_inverse=True)
-        inverse = inverse.reshape(-1)
+        first, inverse = _hash_groups(keys.view(np.uint64) @ _HASH[: keys.shape[1]])
         if np.array_equal(keys[first][inverse], keys):
             return first, inverse
     view = keys.view(np.dtype((np.void, keys.dtype.itemsize * keys.shape[1]))).ravel()
@@ -245,16 +255,7 @@ def _unique_columns(keys: NDArray[np.int64]) -> tuple[NDArray, NDArray]:
     The groups are numbered in the order of their hashes and ``first`` is the first column of
     each, as ``np.unique(h, return_index=True, return_inverse=True)`` gives them.
     """
-    h = _HASH[: keys.shape[0]] @ keys.view(np.uint64)  # wraps modulo 2^64, as intended
-    order = np.argsort(h, kind="stable")
-    h = h[order]
-    new = np.empty(len(h), dtype=bool)
-    new[:1] = True
-    np.not_equal(h[1:], h[:-1], out=new[1:])
-    del h
-    first = order[new]
-    inverse = np.empty(len(order), dtype=np.intp)
-    inverse[order] = np.cumsum(new) - 1
+    first, inverse = _hash_groups(_HASH[: keys.shape[0]] @ keys.view(np.uint64))
     if np.array_equal(keys[:, first[inverse]], keys):
         return first, inverse
     return _unique_rows(keys.T)  # a hash collision: exact sort
@@ -318,7 +319,7 @@ class PairTable:
         delta = ends - starts
         length = rownorm(delta)
         pts = np.concatenate([starts, ends])
-        res = 1e-12 * max(float(np.max(pts.max(axis=0) - pts.min(axis=0))), 1e-300)  # np.ptp
+        res = 1e-12 * max(float((pts.max(axis=0) - pts.min(axis=0)).max()), 1e-300)  # np.ptp
         feat = np.rint(np.column_stack([length / res, radius / res,
                                         delta / length[:, None] * 1e12])).astype(np.int64)
         _, cls = _unique_rows(feat)  # segments alike up to translation
