@@ -102,7 +102,7 @@ def peak_gain(
 
     def vertex(ym: float, y0: float, yp: float) -> float:
         den = ym - 2.0 * y0 + yp
-        return 0.0 if den >= 0 else float(np.clip(0.5 * (ym - yp) / den, -0.5, 0.5))
+        return 0.0 if den >= 0 else min(max(float(0.5 * (ym - yp) / den), -0.5), 0.5)
 
     t_best, p_best = theta[i], phi[j]
     if 0 < i < nt - 1:

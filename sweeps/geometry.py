@@ -505,12 +505,13 @@ def _closest_distance(a0: NDArray[np.float64], d1: NDArray[np.float64], b0: NDAr
     c = add(d1 * r, axis=0)
     b = add(d1 * d2, axis=0)
     denom = a * e - b * b
+    lo, hi = np.maximum, np.minimum  # clip(x, 0, 1) = minimum(maximum(x, 0), 1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        s = np.where(denom > 1e-14 * a * e, np.clip((b * f - c * e) / denom, 0.0, 1.0), 0.0)
+        s = np.where(denom > 1e-14 * a * e, hi(lo((b * f - c * e) / denom, 0.0), 1.0), 0.0)
         t = (b * s + f) / e
-        t_c = np.clip(t, 0.0, 1.0)
-        s = np.where(t < 0.0, np.clip(-c / a, 0.0, 1.0), np.where(t > 1.0,
-                     np.clip((b - c) / a, 0.0, 1.0), s))
+        t_c = hi(lo(t, 0.0), 1.0)
+        s = np.where(t < 0.0, hi(lo(-c / a, 0.0), 1.0), np.where(t > 1.0,
+                     hi(lo((b - c) / a, 0.0), 1.0), s))
     gap = (a0 + s * d1) - (b0 + t_c * d2)
     return np.sqrt(add(gap * gap, axis=0))
 

@@ -197,7 +197,7 @@ class _GridSpline:
         return self._maps[:, intervals, :] @ self.y
 
     def __call__(self, t: float) -> complex:
-        i = int(np.clip(np.searchsorted(self.x, t, side="right") - 1, 0, len(self.x) - 2))
+        i = min(max(int(np.searchsorted(self.x, t, side="right")) - 1, 0), len(self.x) - 2)
         c = self._maps[:, i, :] @ self.y
         s = t - self.x[i]
         return c[3] + c[2] * s + c[1] * (s * s) + c[0] * (s * s * s)
