@@ -783,6 +783,8 @@ class Structure:
             port_nodes=[],
             load_nodes=[],
         )
+        # the derived geometry computed above, with the numbers the cached properties give
+        mesh.__dict__.update(seg_start=starts, seg_end=ends, seg_length=seg_len)
 
         def gap_node(kind: str, i: int, pos: NDArray[np.float64]) -> int:
             dist = rownorm(node_arr - pos)
