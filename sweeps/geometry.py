@@ -725,7 +725,9 @@ class Structure:
         is_start = np.ones(len(all_pts), dtype=bool)
         is_start[last] = False
         first_pts = np.flatnonzero(is_start)
-        seg_nodes = np.stack([index[first_pts], index[first_pts + 1]], axis=1)
+        seg_nodes = np.empty((len(first_pts), 2), dtype=index.dtype)
+        seg_nodes[:, 0] = index[first_pts]
+        seg_nodes[:, 1] = index[first_pts + 1]
         n_seg = counts - 1
         seg_wire = np.repeat(np.asarray(sub_wire, dtype=np.int64), n_seg)
         seg_piece = np.repeat(np.asarray(sub_piece, dtype=np.int64), n_seg)

@@ -245,11 +245,16 @@ class _Interpolant:
         ``f_hz`` are the same frequencies in Hz if known (for the conductor loss).
         """
         f = k / (2.0 * np.pi * C_INV) if f_hz is None else f_hz
-        coef = barycentric_weights(self.nodes, k) / k[:, None]  # (F, n)
+        n_nodes = len(self.nodes)
         if self.loss_rows:
             zs = self.fill.wire_impedances(f)
-            coef = np.concatenate([coef] + [np.stack([z.real, z.imag], axis=1) for z in zs],
-                                  axis=1)
+            coef = np.empty((len(k), n_nodes + 2 * len(zs)))
+            for w, z in enumerate(zs):  # Re and Im of Z'_w(k): the rows G_w and j G_w
+                coef[:, n_nodes + 2 * w] = z.real
+                coef[:, n_nodes + 2 * w + 1] = z.imag
+        else:
+            coef = np.empty((len(k), n_nodes))
+        np.divide(barycentric_weights(self.nodes, k), k[:, None], out=coef[:, :n_nodes])
         n = self.fill.n_unknowns
         out = np.empty((len(k), n, n), dtype=complex)
         np.matmul(coef, self.stack, out=out.reshape(len(k), -1).view(float))

@@ -412,7 +412,9 @@ def static_pair_integrals(
         lq = length[cols][:, None, None]
         rho2 = a2[:, None, None] * ring2[None, None, :]
         j0, j1 = line_integrals(r_out[:, :, None, :], q0, tq, lq, rho2)  # (n, K, P)
-        jbar = np.stack([j0 @ wphi, j1 @ wphi], axis=-1)  # (n, K, 2)
+        jbar = np.empty((*j0.shape[:2], 2))  # (n, K, 2)
+        jbar[..., 0] = j0 @ wphi
+        jbar[..., 1] = j1 @ wphi
         vals = (lam_o.T @ jbar) * (INV4PI * length[rows])[:, None, None]
         # a self pair is stored transposed (as the full-matrix fill always did)
         diag = rows == cols
