@@ -164,7 +164,7 @@ def radiation_vector(
 
 
 def _perp(a: NDArray[np.complex128], r_hat: NDArray[np.float64]) -> NDArray[np.complex128]:
-    return a - np.sum(a * r_hat[:, None, :], axis=-1, keepdims=True) * r_hat[:, None, :]
+    return a - np.add.reduce(a * r_hat[:, None, :], axis=-1, keepdims=True) * r_hat[:, None, :]
 
 
 def radiation_intensity(
@@ -175,7 +175,7 @@ def radiation_intensity(
 ) -> NDArray[np.float64]:
     """Radiation intensity ``U`` in W/sr for peak currents: shape (D, K)."""
     a = _perp(radiation_vector(points, currents, k, r_hat), r_hat)
-    return ETA0 * k**2 / (32.0 * np.pi**2) * np.sum(np.abs(a) ** 2, axis=-1)
+    return ETA0 * k**2 / (32.0 * np.pi**2) * np.add.reduce(np.abs(a) ** 2, axis=-1)
 
 
 def radiation_intensity_turned(
@@ -202,9 +202,9 @@ def radiation_intensity_turned(
     np.conjugate(phase, out=phase)
     a_turned = (phase @ flat).reshape(len(r_hat), n_k, 3)
     scale = ETA0 * k**2 / (32.0 * np.pi**2)
-    u = scale * np.sum(np.abs(_perp(a, r_hat)) ** 2, axis=-1)
+    u = scale * np.add.reduce(np.abs(_perp(a, r_hat)) ** 2, axis=-1)
     turned = r_hat * np.array([-1.0, -1.0, 1.0])
-    u_turned = scale * np.sum(np.abs(_perp(a_turned, turned)) ** 2, axis=-1)
+    u_turned = scale * np.add.reduce(np.abs(_perp(a_turned, turned)) ** 2, axis=-1)
     return u, u_turned
 
 

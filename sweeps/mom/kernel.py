@@ -151,8 +151,8 @@ def line_integrals(
         The integrals for the falling and rising shape (dimensionless).
     """
     w = r - q0
-    xi = np.sum(w * tq, axis=-1)
-    perp2 = np.maximum(np.sum(w * w, axis=-1) - xi * xi, 0.0)
+    xi = np.add.reduce(w * tq, axis=-1)
+    perp2 = np.maximum(np.add.reduce(w * w, axis=-1) - xi * xi, 0.0)
     rr2 = perp2 + rho2
     rho = np.sqrt(rr2)
     a = np.arcsinh(xi / rho) + np.arcsinh((lq - xi) / rho)
@@ -524,7 +524,7 @@ class DynamicPoints:
     def set_caps(self, cap_pos: NDArray[np.float64], cap_radius: NDArray[np.float64]) -> None:
         """Prepare cap-to-segment and cap-to-cap distances (see :func:`cap_static_integrals`)."""
         rho2 = cap_rho2(cap_radius)
-        d2 = np.sum((cap_pos[:, None, :] - self.pts[None, :, :]) ** 2, axis=-1)
+        d2 = np.add.reduce((cap_pos[:, None, :] - self.pts[None, :, :]) ** 2, axis=-1)
         self.cap_r = np.sqrt(d2 + rho2[:, None])  # (C, SQ)
         dc = rownorm(cap_pos[:, None, :] - cap_pos[None, :, :])
         self.cap_cap_r = np.sqrt(dc**2 + rho2[:, None] + rho2[None, :])
