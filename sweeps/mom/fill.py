@@ -111,28 +111,16 @@ class MatrixFill:
         # eight entries per row m N + n, [potential, a, b] for the pairs of halves (a, b) of
         # bases m and n (zeros kept: an end-cap half carries no axial current; duplicate columns
         # in a row add up in the product), so that a source scaled by j omega mu and
-        # 1/(j omega eps) gives Z. Each of the four blocks is formed over all pairs of halves,
-        # (2N, 2N) indexed [2m + a, 2n + b] (numpy is slow on short innermost axes), and then
-        # written to its place in the rows.
+        # 1/(j omega eps) gives Z. The blocks are formed for one half a of the bases m at a
+        # time over all halves of the bases n, (N, 2N) indexed [m, 2n + b] (numpy is slow on
+        # short innermost axes), and then written to their places in the rows.
         self._n_vector_src = 4 * k
         vals = np.empty((n, n, 2, 2, 2))
         cols = np.empty((n, n, 2, 2, 2), dtype=itype)
 
-        def put(out: NDArray, full: NDArray) -> None:
-            for a in range(2):  # (N, N) copies: faster than one transpose with a short last axis
-                for b in range(2):
-                    out[:, :, a, b] = full[a::2, b::2]
-
         seg = mesh.half_seg.ravel()  # (2N,): [2m + a]; int64, as are the flat indices below
-        shape = mesh.half_shape.ravel().astype(itype)
-        # shape pair (p, i), (q, j): column 4 index[p, q] + 2 i + j, transposed for p > q
-        col = index.take(seg[:, None] * s + seg[None, :])
-        col *= 4
-        col += np.where(seg[:, None] <= seg[None, :], 2 * shape[:, None] + shape[None, :],
-                        shape[:, None] + 2 * shape[None, :])
-        put(cols[:, :, 0], col)
+        shape = mesh.half_shape.ravel().astype(np.int8)  # 0 or 1: small temporaries
         tvec = (mesh.seg_dir[mesh.half_seg] * mesh.half_sign[:, :, None]).reshape(2 * n, 3)
-        put(vals[:, :, 0], tvec @ tvec.T)
         # charge elements: segments, then end caps; their pair columns follow the 4K
         elem_cols = np.empty((s + c, s + c), dtype=itype)
         elem_cols[:s, :s] = index
@@ -143,9 +131,21 @@ class MatrixFill:
             elem_cols[s:, s:] = (k + c * s + np.arange(c * c, dtype=itype)).reshape(c, c)
         elem_cols += 4 * k
         elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).ravel()
-        put(cols[:, :, 1], elem_cols.take(elem[:, None] * (s + c) + elem[None, :]))
         div = mesh.half_div.ravel()
-        put(vals[:, :, 1], np.outer(div, div))
+        def put(out: NDArray, block: NDArray) -> None:
+            for b in range(2):  # (N, N) copies into the rows' entries [a, b]
+                out[:, :, b] = block[:, b::2]
+
+        for a in range(2):  # the halves a of the bases m: blocks (N, 2N), [m, 2n + b]
+            sa, sha = seg[a::2, None], shape[a::2, None]
+            # shape pair (p, i), (q, j): column 4 index[p, q] + 2 i + j, transposed for p > q
+            col = index.take(sa * s + seg[None, :])
+            col *= 4
+            col += np.where(sa <= seg[None, :], 2 * sha + shape[None, :], sha + 2 * shape[None, :])
+            put(cols[:, :, 0, a], col)
+            put(cols[:, :, 1, a], elem_cols.take(elem[a::2, None] * (s + c) + elem[None, :]))
+            put(vals[:, :, 0, a], tvec[a::2] @ tvec.T)
+            put(vals[:, :, 1, a], np.outer(div[a::2], div))
         indptr = np.arange(0, 8 * n * n + 1, 8, dtype=np.int32 if 8 * n * n < 2**31 else np.int64)
         self._amap = csr_matrix((vals.reshape(-1), cols.reshape(-1), indptr),
                                 shape=(n * n, 4 * k + k + c * s + c * c))
