@@ -470,36 +470,50 @@ def _point_segment_distance(
 ) -> tuple[float, float]:
     """Distance from point ``p`` to segment ``ab`` and the parameter ``t`` of the closest point."""
     d = b - a
-    t = float(np.clip(np.dot(p - a, d) / np.dot(d, d), 0.0, 1.0))
-    return float(np.linalg.norm(a + t * d - p)), t
+    t = min(max(float(np.dot(p - a, d) / np.dot(d, d)), 0.0), 1.0)
+    return _norm(a + t * d - p), t
 
 
-def _closest_distance(a0: list, d1: list, b0: list, d2: list) -> NDArray[np.float64]:
+def _norm(v: NDArray[np.float64]) -> float:
+    """``np.linalg.norm`` of a real vector (the same ``sqrt(v . v)``), without its overhead."""
+    return math.sqrt(float(v.dot(v)))
+
+
+def _unit_steps(n: int) -> NDArray[np.float64]:
+    """``np.linspace(0, 1, n + 1)`` for ``n >= 1``, computed the same way (``i * (1 / n)``, the
+    last point exactly 1), without its argument handling."""
+    u = np.arange(n + 1, dtype=float)
+    u *= 1.0 / n
+    u[-1] = 1.0
+    return u
+
+
+def _closest_distance(a0: NDArray[np.float64], d1: NDArray[np.float64], b0: NDArray[np.float64],
+                      d2: NDArray[np.float64]) -> NDArray[np.float64]:
     """Classic closest-points-of-two-segments algorithm on broadcastable component arrays.
 
-    ``a0, b0`` start points and ``d1, d2`` direction vectors (end minus start), each a list of
-    three arrays (x, y, z). Clamped parameters with re-projection; elementwise, so all-pairs and
-    pair-by-pair evaluations give identical numbers.
+    ``a0, b0`` start points and ``d1, d2`` direction vectors (end minus start), each of shape
+    ``(3, ...)`` (x, y, z first). Clamped parameters with re-projection; elementwise (the sums
+    over the components run x + y + z in that order either way), so all-pairs and pair-by-pair
+    evaluations give identical numbers.
     """
-    r = [a0[i] - b0[i] for i in range(3)]
-    a = d1[0] * d1[0] + d1[1] * d1[1] + d1[2] * d1[2]
-    e = d2[0] * d2[0] + d2[1] * d2[1] + d2[2] * d2[2]
-    f = d2[0] * r[0] + d2[1] * r[1] + d2[2] * r[2]
-    c = d1[0] * r[0] + d1[1] * r[1] + d1[2] * r[2]
-    b = d1[0] * d2[0] + d1[1] * d2[1] + d1[2] * d2[2]
+    add = np.add.reduce
+    r = a0 - b0
+    a = add(d1 * d1, axis=0)
+    e = add(d2 * d2, axis=0)
+    f = add(d2 * r, axis=0)
+    c = add(d1 * r, axis=0)
+    b = add(d1 * d2, axis=0)
     denom = a * e - b * b
+    lo, hi = np.maximum, np.minimum  # clip(x, 0, 1) = minimum(maximum(x, 0), 1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        s = np.where(denom > 1e-14 * a * e, np.clip((b * f - c * e) / denom, 0.0, 1.0), 0.0)
+        s = np.where(denom > 1e-14 * a * e, hi(lo((b * f - c * e) / denom, 0.0), 1.0), 0.0)
         t = (b * s + f) / e
-    t_c = np.clip(t, 0.0, 1.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s = np.where(t < 0.0, np.clip(-c / a, 0.0, 1.0), np.where(t > 1.0,
-                     np.clip((b - c) / a, 0.0, 1.0), s))
-    sq = 0.0
-    for i in range(3):
-        gap = (a0[i] + s * d1[i]) - (b0[i] + t_c * d2[i])
-        sq = sq + gap * gap
-    return np.sqrt(sq)
+        t_c = hi(lo(t, 0.0), 1.0)
+        s = np.where(t < 0.0, hi(lo(-c / a, 0.0), 1.0), np.where(t > 1.0,
+                     hi(lo((b - c) / a, 0.0), 1.0), s))
+    gap = (a0 + s * d1) - (b0 + t_c * d2)
+    return np.sqrt(add(gap * gap, axis=0))
 
 
 def segment_distances(
@@ -511,11 +525,9 @@ def segment_distances(
     Vectorised form of the classic closest-points-of-two-segments algorithm (clamped parameters,
     re-projection), shape ``(len(a0), len(b0))``.
     """
-    # one (n, m) array per Cartesian component: no reductions over a short last axis
-    return _closest_distance([a0[:, i][:, None] for i in range(3)],
-                             [(a1[:, i] - a0[:, i])[:, None] for i in range(3)],
-                             [b0[:, i][None, :] for i in range(3)],
-                             [(b1[:, i] - b0[:, i])[None, :] for i in range(3)])
+    # components first, (3, n, 1) against (3, 1, m): no reductions over a short last axis
+    return _closest_distance(a0.T[:, :, None], (a1 - a0).T[:, :, None], b0.T[:, None, :],
+                             (b1 - b0).T[:, None, :])
 
 
 def paired_segment_distances(
@@ -526,8 +538,7 @@ def paired_segment_distances(
 
     The same numbers as the matching entries of :func:`segment_distances`.
     """
-    return _closest_distance([a0[:, i] for i in range(3)], [a1[:, i] - a0[:, i] for i in range(3)],
-                             [b0[:, i] for i in range(3)], [b1[:, i] - b0[:, i] for i in range(3)])
+    return _closest_distance(a0.T, (a1 - a0).T, b0.T, (b1 - b0).T)
 
 
 def segments_within(
@@ -670,7 +681,7 @@ class Structure:
                     "wire"
                 )
             pi, t = hit
-            L = np.linalg.norm(pieces[pi][2] - pieces[pi][1])
+            L = _norm(pieces[pi][2] - pieces[pi][1])
             if t * L > tol and (1 - t) * L > tol:
                 pieces[pi][3].append(t)
         for wi, pos in endpoints:
@@ -678,7 +689,7 @@ class Structure:
                 if wj == wi:
                     continue
                 d, t = _point_segment_distance(pos, a0, a1)
-                L = np.linalg.norm(a1 - a0)
+                L = _norm(a1 - a0)
                 if d <= tol and t * L > tol and (1 - t) * L > tol:
                     cuts.append(t)
 
@@ -694,12 +705,12 @@ class Structure:
             for t0, t1 in zip(ts[:-1], ts[1:], strict=True):
                 p0 = a0 + t0 * (a1 - a0)
                 p1 = a0 + t1 * (a1 - a0)
-                L = float(np.linalg.norm(p1 - p0))
+                L = _norm(p1 - p0)
                 if w.segments is not None:
                     n = max(1, round(w.segments * L / wire_len[wi]))
                 else:
                     n = max(rules.min_segments_per_piece, math.ceil(L / target - 1e-9))
-                u = np.linspace(0.0, 1.0, n + 1)[:, None]
+                u = _unit_steps(n)[:, None]
                 sub_pts.append(p0 + u * (p1 - p0))
                 sub_wire.append(wi)
                 sub_piece.append(pi)
@@ -714,7 +725,9 @@ class Structure:
         is_start = np.ones(len(all_pts), dtype=bool)
         is_start[last] = False
         first_pts = np.flatnonzero(is_start)
-        seg_nodes = np.stack([index[first_pts], index[first_pts + 1]], axis=1)
+        seg_nodes = np.empty((len(first_pts), 2), dtype=index.dtype)
+        seg_nodes[:, 0] = index[first_pts]
+        seg_nodes[:, 1] = index[first_pts + 1]
         n_seg = counts - 1
         seg_wire = np.repeat(np.asarray(sub_wire, dtype=np.int64), n_seg)
         seg_piece = np.repeat(np.asarray(sub_piece, dtype=np.int64), n_seg)
@@ -772,6 +785,8 @@ class Structure:
             port_nodes=[],
             load_nodes=[],
         )
+        # the derived geometry computed above, with the numbers the cached properties give
+        mesh.__dict__.update(seg_start=starts, seg_end=ends, seg_length=seg_len)
 
         def gap_node(kind: str, i: int, pos: NDArray[np.float64]) -> int:
             dist = rownorm(node_arr - pos)
@@ -909,25 +924,27 @@ def _bases(
     n = len(inc)
     # "in" half: current toward the node on s_in (+t with shape u when the node is its end)
     # "out" half: current away from the node on s_out (+t with shape 1-u when it is its start)
-    half_seg = np.stack([s_in, np.where(cap, s_in, s_out)], axis=1)
-    half_shape = np.stack([end_in, np.where(cap, 0, end_out)], axis=1)
-    sign_in = np.where(end_in == 1, 1, -1)
-    half_sign = np.stack([sign_in, np.where(cap, 0, np.where(end_out == 0, 1, -1))], axis=1)
-    half_div = np.stack([1.0 / seg_len[s_in], np.where(cap, -1.0, -1.0 / seg_len[s_out])],
-                        axis=1)
-    cap_index = np.cumsum(cap) - 1
-    half_cap = np.stack([np.full(n, -1), np.where(cap, cap_index, -1)], axis=1)
+    half_seg, half_shape, half_sign, half_cap = np.empty((4, n, 2), dtype=np.int64)
+    half_seg[:, 0] = s_in
+    half_seg[:, 1] = np.where(cap, s_in, s_out)
+    half_shape[:, 0] = end_in
+    half_shape[:, 1] = np.where(cap, 0, end_out)
+    half_sign[:, 0] = 2 * end_in - 1  # +1 when the node is the end of s_in
+    half_sign[:, 1] = np.where(cap, 0, 1 - 2 * end_out)  # +1 when it is the start of s_out
+    half_div = np.empty((n, 2))
+    half_div[:, 0] = 1.0 / seg_len[s_in]
+    half_div[:, 1] = np.where(cap, -1.0, -1.0 / seg_len[s_out])
+    half_cap[:, 0] = -1
+    half_cap[:, 1] = np.where(cap, np.cumsum(cap) - 1, -1)
     cap_nodes = node[cap]
     cap_radius = seg_radius[s_in[cap]].astype(float)
     node_first_basis = np.full(n_nodes, -1, dtype=np.int64)
     inner = np.flatnonzero(~cap)
     on = node[inner]  # in node order: the first inner basis of a node starts its run
-    first_inner = inner[np.r_[True, on[1:] != on[:-1]]] if len(inner) else inner
+    first_inner = inner[np.concatenate(([True], on[1:] != on[:-1]))] if len(inner) else inner
     node_first_basis[node[first_inner]] = first_inner
-    return (half_seg.astype(np.int64), half_shape.astype(np.int64),
-            half_sign.astype(np.int64), half_div, half_cap.astype(np.int64),
-            node.astype(np.int64), cap_nodes.astype(np.int64), cap_radius, node_first_basis,
-            degree)
+    return (half_seg, half_shape, half_sign, half_div, half_cap, node.astype(np.int64),
+            cap_nodes.astype(np.int64), cap_radius, node_first_basis, degree)
 
 
 def _gap_vector(mesh: Mesh, basis: int, gap_m: float) -> NDArray[np.float64]:

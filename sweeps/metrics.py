@@ -197,7 +197,7 @@ class _GridSpline:
         return self._maps[:, intervals, :] @ self.y
 
     def __call__(self, t: float) -> complex:
-        i = int(np.clip(np.searchsorted(self.x, t, side="right") - 1, 0, len(self.x) - 2))
+        i = min(max(int(np.searchsorted(self.x, t, side="right")) - 1, 0), len(self.x) - 2)
         c = self._maps[:, i, :] @ self.y
         s = t - self.x[i]
         return c[3] + c[2] * s + c[1] * (s * s) + c[0] * (s * s * s)
@@ -386,16 +386,20 @@ def impedance_slope(
     w_at = 2.0 * np.pi * at_hz
     m = min(points, n)
     idx = np.sort(np.argsort(np.abs(w - w_at), kind="stable")[:m])
-    h = float(np.mean(np.diff(w[idx])))
-    u = (w[idx] - w_at) / h
+    w_win = w[idx]
+    h = float((w_win[1:] - w_win[:-1]).sum() / (m - 1))  # the mean spacing
+    u = (w_win - w_at) / h
+    z_win = np.asarray(z)[idx]
+    # the powers of u once for both fits (np.vander's columns are the same for any degree)
+    powers = np.vander(u, min(5, m - 1) + 1, increasing=True)
 
     def fit(degree: int) -> tuple[complex, complex]:
         deg = min(degree, m - 1)
-        vander = np.vander(u, deg + 1, increasing=True)
+        vander = np.ascontiguousarray(powers[:, : deg + 1])
         if m > deg + 1:  # least squares by the normal equations (u is scaled: well conditioned)
-            coef = np.linalg.solve(vander.T @ vander, vander.T @ z[idx])
+            coef = np.linalg.solve(vander.T @ vander, vander.T @ z_win)
         else:
-            coef, *_ = np.linalg.lstsq(vander, z[idx], rcond=None)
+            coef, *_ = np.linalg.lstsq(vander, z_win, rcond=None)
         return complex(coef[0]), complex(coef[1] / h)
 
     z_at, slope = fit(3)
@@ -456,9 +460,9 @@ def _check_inputs(f_hz: NDArray[np.float64], zin: NDArray[np.complex128], target
         raise ConfigError(
             f"metrics: f_hz and zin must be 1-D of equal length (got {f_hz.shape}, {zin.shape})"
         )
-    if not (np.all(np.isfinite(f_hz)) and np.all(np.isfinite(zin))):
+    if not (np.isfinite(f_hz).all() and np.isfinite(zin).all()):
         raise ConfigError("metrics: frequencies and impedances must be finite")
-    if np.any(np.diff(f_hz) <= 0) or f_hz[0] <= 0:
+    if (f_hz[1:] <= f_hz[:-1]).any() or f_hz[0] <= 0:  # np.diff(f_hz) <= 0
         raise ConfigError("metrics: frequencies must be positive and strictly increasing")
     if not (f_hz[0] * (1 - 1e-12) <= target_hz <= f_hz[-1] * (1 + 1e-12)):
         raise ConfigError(

@@ -24,6 +24,7 @@ __all__ = [
     "sphere_grid",
     "radiation_vector",
     "radiation_intensity",
+    "radiation_intensity_turned",
     "radiated_power",
     "plane_wave_rhs",
     "rcs",
@@ -72,9 +73,10 @@ class CurrentPoints:
         n = mesh.n_unknowns
         s = mesh.n_segments
         delta = mesh.seg_end - mesh.seg_start
-        w = np.zeros((s, n))
+        # w[segment, basis]: the halves' signs / 2 (an end-cap half adds 0 to its segment)
         m = np.repeat(np.arange(n), 2)
-        np.add.at(w, (mesh.half_seg.ravel(), m), 0.5 * mesh.half_sign.ravel().astype(float))
+        w = np.bincount(mesh.half_seg.ravel() * n + m, weights=0.5 * mesh.half_sign.ravel(),
+                        minlength=s * n).reshape(s, n)
         out = MergedPoints.__new__(MergedPoints)
         out.positions = 0.5 * (mesh.seg_start + mesh.seg_end)
         out._weights = (delta[:, :, None] * w[:, None, :]).reshape(s * 3, n)
@@ -162,7 +164,7 @@ def radiation_vector(
 
 
 def _perp(a: NDArray[np.complex128], r_hat: NDArray[np.float64]) -> NDArray[np.complex128]:
-    return a - np.sum(a * r_hat[:, None, :], axis=-1, keepdims=True) * r_hat[:, None, :]
+    return a - np.add.reduce(a * r_hat[:, None, :], axis=-1, keepdims=True) * r_hat[:, None, :]
 
 
 def radiation_intensity(
@@ -173,7 +175,37 @@ def radiation_intensity(
 ) -> NDArray[np.float64]:
     """Radiation intensity ``U`` in W/sr for peak currents: shape (D, K)."""
     a = _perp(radiation_vector(points, currents, k, r_hat), r_hat)
-    return ETA0 * k**2 / (32.0 * np.pi**2) * np.sum(np.abs(a) ** 2, axis=-1)
+    return ETA0 * k**2 / (32.0 * np.pi**2) * np.add.reduce(np.abs(a) ** 2, axis=-1)
+
+
+def radiation_intensity_turned(
+    points: CurrentPoints | MergedPoints,
+    currents: NDArray[np.complex128],
+    k: float,
+    r_hat: NDArray[np.float64],
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Radiation intensity (W/sr) at ``r_hat`` (D, 3) and at the directions turned by pi about z.
+
+    For current elements in one plane ``z = z0`` (``planar_z``) the phase toward the turned
+    direction ``(-x, -y, z)`` is ``e^{2jk z0 r_z}`` times the conjugate of the phase toward
+    ``r_hat``; the common factor drops out of ``U``, so both halves share one set of cosines
+    and sines. Returns ``U`` (D, K) at ``r_hat`` and at the turned directions.
+    """
+    pos, elem = points.elements(np.asarray(currents))
+    arg = k * (r_hat @ pos.T)  # (D, P)
+    phase = np.empty(arg.shape, dtype=complex)
+    phase.real = np.cos(arg)
+    phase.imag = np.sin(arg)
+    n_k = elem.shape[1]
+    flat = elem.reshape(len(pos), -1)
+    a = (phase @ flat).reshape(len(r_hat), n_k, 3)
+    np.conjugate(phase, out=phase)
+    a_turned = (phase @ flat).reshape(len(r_hat), n_k, 3)
+    scale = ETA0 * k**2 / (32.0 * np.pi**2)
+    u = scale * np.add.reduce(np.abs(_perp(a, r_hat)) ** 2, axis=-1)
+    turned = r_hat * np.array([-1.0, -1.0, 1.0])
+    u_turned = scale * np.add.reduce(np.abs(_perp(a_turned, turned)) ** 2, axis=-1)
+    return u, u_turned
 
 
 def radiated_power(

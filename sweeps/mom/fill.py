@@ -107,13 +107,21 @@ class MatrixFill:
         k = self.pairs.size
         index = self.pairs.index
         itype = index.dtype  # int32 unless the structure is huge: smaller, faster maps
-        # column of every shape pair (p, i), (q, j) in the per-group integrals (transposed for
-        # p > q), and of every pair of charge elements (segments, then end caps)
-        upper = np.triu(np.ones((s, s), dtype=bool))[:, None, :, None]
-        ii = np.arange(2, dtype=itype)[None, :, None, None]
-        jj = np.arange(2, dtype=itype)[None, None, None, :]
-        shape_cols = ((4 * index)[:, None, :, None]
-                      + np.where(upper, 2 * ii + jj, 2 * jj + ii)).reshape(2 * s, 2 * s)
+        # one matrix for both potentials: columns [4K shape integrals | charge integrals] and
+        # eight entries per row m N + n, [potential, a, b] for the pairs of halves (a, b) of
+        # bases m and n (zeros kept: an end-cap half carries no axial current; duplicate columns
+        # in a row add up in the product), so that a source scaled by j omega mu and
+        # 1/(j omega eps) gives Z. The blocks are formed for one half a of the bases m at a
+        # time over all halves of the bases n, (N, 2N) indexed [m, 2n + b] (numpy is slow on
+        # short innermost axes), and then written to their places in the rows.
+        self._n_vector_src = 4 * k
+        vals = np.empty((n, n, 2, 2, 2))
+        cols = np.empty((n, n, 2, 2, 2), dtype=itype)
+
+        seg = mesh.half_seg.ravel()  # (2N,): [2m + a]; int64, as are the flat indices below
+        shape = mesh.half_shape.ravel().astype(np.int8)  # 0 or 1: small temporaries
+        tvec = (mesh.seg_dir[mesh.half_seg] * mesh.half_sign[:, :, None]).reshape(2 * n, 3)
+        # charge elements: segments, then end caps; their pair columns follow the 4K
         elem_cols = np.empty((s + c, s + c), dtype=itype)
         elem_cols[:s, :s] = index
         if c:
@@ -121,26 +129,23 @@ class MatrixFill:
             elem_cols[s:, :s] = cap_seg
             elem_cols[:s, s:] = cap_seg.T
             elem_cols[s:, s:] = (k + c * s + np.arange(c * c, dtype=itype)).reshape(c, c)
-        # one matrix for both potentials: columns [4K shape integrals | charge integrals] and
-        # eight entries per row m N + n, one per pair of halves (a, b) of bases m and n for each
-        # potential (zeros kept: an end-cap half carries no axial current; duplicate columns in
-        # a row add up in the product), so that a source scaled by j omega mu and
-        # 1/(j omega eps) gives Z. Written in place: no (N, N)-sized temporaries pile up.
-        self._n_vector_src = 4 * k
-        vals = np.empty((n, n, 8))
-        cols = np.empty((n, n, 8), dtype=itype)
-        half = (2 * mesh.half_seg + mesh.half_shape).astype(itype)  # (N, 2) shape index
-        tvec = mesh.seg_dir[mesh.half_seg] * mesh.half_sign[:, :, None]  # (N, 2, 3)
-        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).astype(itype)
-        div = mesh.half_div
-        for a in range(2):
-            for b in range(2):
-                t = 2 * a + b
-                cols[:, :, t] = shape_cols[np.ix_(half[:, a], half[:, b])]
-                vals[:, :, t] = tvec[:, a] @ tvec[:, b].T
-                cols[:, :, 4 + t] = elem_cols[np.ix_(elem[:, a], elem[:, b])]
-                cols[:, :, 4 + t] += 4 * k
-                vals[:, :, 4 + t] = np.outer(div[:, a], div[:, b])
+        elem_cols += 4 * k
+        elem = np.where(mesh.half_cap >= 0, s + mesh.half_cap, mesh.half_seg).ravel()
+        div = mesh.half_div.ravel()
+        def put(out: NDArray, block: NDArray) -> None:
+            for b in range(2):  # (N, N) copies into the rows' entries [a, b]
+                out[:, :, b] = block[:, b::2]
+
+        for a in range(2):  # the halves a of the bases m: blocks (N, 2N), [m, 2n + b]
+            sa, sha = seg[a::2, None], shape[a::2, None]
+            # shape pair (p, i), (q, j): column 4 index[p, q] + 2 i + j, transposed for p > q
+            col = index.take(sa * s + seg[None, :])
+            col *= 4
+            col += np.where(sa <= seg[None, :], 2 * sha + shape[None, :], sha + 2 * shape[None, :])
+            put(cols[:, :, 0, a], col)
+            put(cols[:, :, 1, a], elem_cols.take(elem[a::2, None] * (s + c) + elem[None, :]))
+            put(vals[:, :, 0, a], tvec[a::2] @ tvec.T)
+            put(vals[:, :, 1, a], np.outer(div[a::2], div))
         indptr = np.arange(0, 8 * n * n + 1, 8, dtype=np.int32 if 8 * n * n < 2**31 else np.int64)
         self._amap = csr_matrix((vals.reshape(-1), cols.reshape(-1), indptr),
                                 shape=(n * n, 4 * k + k + c * s + c * c))
@@ -208,8 +213,10 @@ class MatrixFill:
         order = np.argsort(seg, kind="stable")
         m_idx, h_idx, seg = m_idx[order], h_idx[order], seg[order]
         # every ordered pair of halves on the same segment (groups of equal `seg`)
-        starts = np.flatnonzero(np.r_[True, seg[1:] != seg[:-1]])
-        sizes = np.diff(np.r_[starts, len(seg)])
+        starts = np.flatnonzero(np.concatenate(([True], seg[1:] != seg[:-1])))
+        sizes = np.empty_like(starts)
+        sizes[:-1] = starts[1:] - starts[:-1]
+        sizes[-1] = len(seg) - starts[-1]
         size_of = np.repeat(sizes, sizes)  # group size of each half
         first_of = np.repeat(starts, sizes)  # group start of each half
         left = np.repeat(np.arange(len(seg)), size_of)
@@ -270,6 +277,8 @@ class MatrixFill:
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         n = self.n_unknowns
+        n_vec = self._n_vector_src
+        n_pairs = self.pairs.size
         out = np.empty((len(f), n, n), dtype=complex)
         step = self._chunk()
         for i0 in range(0, len(f), step):
@@ -277,12 +286,19 @@ class MatrixFill:
             k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
             jwmu = 1j * 2.0 * np.pi * f[sl] * MU0
             jweps_inv = 1.0 / (1j * 2.0 * np.pi * f[sl] * EPS0)
-            dyn = self._dyn.pair_integrals(k)  # (F, K, 5)
-            vector = dyn[:, :, :4].reshape(len(k), -1) + self._static_vector_src
-            vector *= jwmu[:, None]
-            charge = self._charge_sources(k, dyn) + self._static_charge_src
-            charge *= jweps_inv[:, None]
-            out[sl] = self._assemble(vector, charge).reshape(-1, n, n)
+            pairs, caps = self._dyn.columns(k)  # (F, K, 5), (F, C S + C^2)
+            # the source, one complex column per frequency: viewed as real it is the (re, im)
+            # column pairs the assembly matrix multiplies
+            src = np.empty((self._amap.shape[1], len(k)), dtype=complex)
+            src[:n_vec] = pairs[:, :, :4].reshape(len(k), n_vec).T
+            src[n_vec: n_vec + n_pairs] = pairs[:, :, 4].T
+            src[n_vec + n_pairs:] = caps.T
+            src[:n_vec] += self._static_vector_src[:, None]
+            src[:n_vec] *= jwmu[None, :]
+            src[n_vec:] += self._static_charge_src[:, None]
+            src[n_vec:] *= jweps_inv[None, :]
+            z = self._amap @ src.view(float)  # (N*N, 2F): columns re, im of each frequency
+            out[sl] = z.view(complex).T.reshape(-1, n, n)
         return out
 
     def efie(
@@ -362,16 +378,21 @@ class MatrixFill:
         ``currents`` has shape (F, N, K) (peak amplitudes).
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
-        out = np.zeros((len(f), currents.shape[-1]))
+        n_f, n, n_k = currents.shape
+        out = np.zeros(n_f * n_k)
+        cur = currents.transpose(0, 2, 1).reshape(n_f * n_k, n)  # (F K, N): one row per current
         for (_, rows, cols, vals), zs in zip(self._grams, self.wire_impedances(f),
                                              strict=True):
-            # frequency blocks keep the gathered currents below ~100 kB (no fresh pages)
-            step = max(1, int(100e3 // (16 * len(rows) * currents.shape[-1])))
-            for i0 in range(0, len(f), step):
-                c = currents[i0: i0 + step]
-                quad = np.einsum("fek,e,fek->fk", c[:, rows, :].conj(), vals, c[:, cols, :])
-                out[i0: i0 + step] += 0.5 * zs.real[i0: i0 + step, None] * quad.real
-        return out
+            half_r = 0.5 * np.repeat(zs.real, n_k)
+            # Re(conj(I_r) I_c) = Re I_r Re I_c + Im I_r Im I_c over the Gram entries, in blocks
+            # of rows that keep each gathered array below ~256 kB
+            step = max(1, int(256e3 // (16 * len(rows))))
+            for i0 in range(0, len(cur), step):
+                c = cur[i0: i0 + step]
+                c_r, c_c = c.take(rows, axis=1), c.take(cols, axis=1)
+                out[i0: i0 + step] += half_r[i0: i0 + step] * ((c_r.real * c_c.real
+                                                                + c_r.imag * c_c.imag) @ vals)
+        return out.reshape(n_f, n_k)
 
     def loads(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Lumped-load part ``sum_L Z_L(f) e_L e_L^T``: shape (F, N, N) in ohm."""

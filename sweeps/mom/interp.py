@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import logging
 import math
+from functools import lru_cache
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -67,6 +68,15 @@ def chebyshev_nodes(lo: float, hi: float, n: int) -> NDArray[np.float64]:
     return 0.5 * (lo + hi) + 0.5 * (hi - lo) * x
 
 
+@lru_cache(maxsize=16)
+def _chebyshev_weights(n: int) -> NDArray[np.float64]:
+    """Barycentric weights ``(-1)^j sin((2j+1) pi / 2n)`` of ``n`` Chebyshev points (first kind)."""
+    j = np.arange(n)
+    w = (-1.0) ** j * np.sin((2 * j + 1) * np.pi / (2 * n))
+    w.setflags(write=False)
+    return w
+
+
 def barycentric_weights(
     nodes: NDArray[np.float64], x: NDArray[np.float64]
 ) -> NDArray[np.float64]:
@@ -75,9 +85,7 @@ def barycentric_weights(
     Barycentric form with the closed-form weights ``(-1)^j sin((2j+1) pi / 2n)`` (J.-P. Berrut &
     L. N. Trefethen, "Barycentric Lagrange interpolation", SIAM Review 46(3), 2004, eq. 5.3).
     """
-    n = len(nodes)
-    j = np.arange(n)
-    w = (-1.0) ** j * np.sin((2 * j + 1) * np.pi / (2 * n))
+    w = _chebyshev_weights(len(nodes))
     # nodes are increasing here, Berrut-Trefethen list them decreasing: the sign pattern is the
     # same up to a common factor, which cancels.
     diff = x[:, None] - nodes[None, :]
@@ -192,7 +200,8 @@ def _plan(fill: MatrixFill, span_k: float, n_freq: int) -> tuple[int, bool]:
     # the whole phase is a pessimistic model of the matrix entries (most of them are far
     # smaller than the largest): 1e-7 for it keeps the check error near 1e-11 (measured)
     pos = fill.mesh.nodes[fill.mesh.basis_node]
-    size = float(np.sqrt(np.sum(np.ptp(pos, axis=0) ** 2)))  # >= every basis distance
+    span = pos.max(axis=0) - pos.min(axis=0)  # np.ptp
+    size = float(np.sqrt(np.sum(span**2)))  # >= every basis distance
     n_plain = _nodes_needed(span_k, size + extent, 1e-7)
     per = _FILL_COST_NODES / max(n_freq, 1)
     cost_phase = n_phase * (1.0 + per) + _PHASE_COST_NODES
@@ -236,11 +245,16 @@ class _Interpolant:
         ``f_hz`` are the same frequencies in Hz if known (for the conductor loss).
         """
         f = k / (2.0 * np.pi * C_INV) if f_hz is None else f_hz
-        coef = barycentric_weights(self.nodes, k) / k[:, None]  # (F, n)
+        n_nodes = len(self.nodes)
         if self.loss_rows:
             zs = self.fill.wire_impedances(f)
-            coef = np.concatenate([coef] + [np.stack([z.real, z.imag], axis=1) for z in zs],
-                                  axis=1)
+            coef = np.empty((len(k), n_nodes + 2 * len(zs)))
+            for w, z in enumerate(zs):  # Re and Im of Z'_w(k): the rows G_w and j G_w
+                coef[:, n_nodes + 2 * w] = z.real
+                coef[:, n_nodes + 2 * w + 1] = z.imag
+        else:
+            coef = np.empty((len(k), n_nodes))
+        np.divide(barycentric_weights(self.nodes, k), k[:, None], out=coef[:, :n_nodes])
         n = self.fill.n_unknowns
         out = np.empty((len(k), n, n), dtype=complex)
         np.matmul(coef, self.stack, out=out.reshape(len(k), -1).view(float))

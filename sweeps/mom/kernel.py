@@ -41,7 +41,7 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import NDArray
 
-from sweeps.geometry import rownorm
+from sweeps.geometry import paired_segment_distances, rownorm
 from sweeps.mom.quadrature import gauss01, graded_gauss01, start_graded_gauss01
 
 __all__ = ["KernelRules", "PairTable", "static_integrals", "static_pair_integrals",
@@ -93,6 +93,38 @@ def _lambda(u: NDArray[np.float64]) -> NDArray[np.float64]:
     return np.stack([1.0 - u, u], axis=-1)
 
 
+def _frozen(*arrays: NDArray) -> tuple[NDArray, ...]:
+    for a in arrays:
+        a.setflags(write=False)
+    return arrays
+
+
+@lru_cache(maxsize=16)
+def _shape_rule(n: int, graded: bool = False) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Nodes ``u`` (Q,) and weighted shapes ``lambda(u) w`` (Q, 2) of a Gauss rule on [0, 1]
+    (plain or graded, :mod:`sweeps.mom.quadrature`); fixed by the rule, so formed once."""
+    u, w = graded_gauss01(n) if graded else gauss01(n)
+    return _frozen(u, _lambda(u) * w[:, None])
+
+
+@lru_cache(maxsize=16)
+def _ring_rule(n: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Weights and ``(2 sin(phi/2))^2`` of the ring average of the exact kernel (``n`` points)."""
+    tphi, wphi = start_graded_gauss01(n)
+    phi = np.pi * tphi  # (1/pi) int_0^pi dphi = int_0^1 dt
+    return _frozen(wphi, (2.0 * np.sin(0.5 * phi)) ** 2)
+
+
+@lru_cache(maxsize=16)
+def _point_pair_weights(q: int) -> NDArray[np.float64]:
+    """Weights (Q^2, 5) of the point pairs (u, v) of a ``q``-point Gauss rule on both segments:
+    the four shape pairs (i, j), then the charge (the plain product ``w_u w_v``)."""
+    _, w = gauss01(q)
+    _, lam_w = _shape_rule(q)
+    lam2 = np.einsum("ui,vj->uvij", lam_w, lam_w).reshape(q**2, 4)
+    return _frozen(np.column_stack([lam2, np.outer(w, w).reshape(-1)]))[0]
+
+
 def line_integrals(
     r: NDArray[np.float64],
     q0: NDArray[np.float64],
@@ -119,8 +151,8 @@ def line_integrals(
         The integrals for the falling and rising shape (dimensionless).
     """
     w = r - q0
-    xi = np.sum(w * tq, axis=-1)
-    perp2 = np.maximum(np.sum(w * w, axis=-1) - xi * xi, 0.0)
+    xi = np.add.reduce(w * tq, axis=-1)
+    perp2 = np.maximum(np.add.reduce(w * w, axis=-1) - xi * xi, 0.0)
     rr2 = perp2 + rho2
     rho = np.sqrt(rr2)
     a = np.arcsinh(xi / rho) + np.arcsinh((lq - xi) / rho)
@@ -171,8 +203,6 @@ def group_near(
 ) -> NDArray[np.bool_]:
     """Near-field switch for the segment pairs ``(p[k], q[k])``: the rule of :func:`near_pairs`
     with the relative margin :data:`NEAR_MARGIN` (closest distance up to the threshold)."""
-    from sweeps.geometry import paired_segment_distances
-
     length = rownorm(ends - starts)
     limit = np.maximum(rules.near_lengths * np.maximum(length[p], length[q]),
                        rules.near_radii * np.maximum(radius[p], radius[q]))
@@ -188,6 +218,20 @@ _HASH = np.random.default_rng(20261201).integers(1, 2**63, size=64, dtype=np.int
     np.uint64) | np.uint64(1)
 
 
+def _hash_groups(h: NDArray[np.uint64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """``np.unique(h, return_index=True, return_inverse=True)[1:]`` without its wrapper: the
+    first index of each distinct value (groups numbered in increasing order of value) and the
+    group of every entry. (The hashes are sums modulo 2^64, wrapping as intended.)"""
+    order = np.argsort(h, kind="stable")
+    h = h[order]
+    new = np.empty(len(h), dtype=bool)
+    new[:1] = True
+    np.not_equal(h[1:], h[:-1], out=new[1:])
+    inverse = np.empty(len(order), dtype=np.intp)
+    inverse[order] = np.cumsum(new) - 1
+    return order[new], inverse
+
+
 def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
     """First occurrence of each distinct row of an integer array and the group of every row.
 
@@ -196,9 +240,7 @@ def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np
     """
     keys = np.ascontiguousarray(keys, dtype=np.int64)
     if keys.shape[1] <= len(_HASH):
-        h = keys.view(np.uint64) @ _HASH[: keys.shape[1]]
-        _, first, inverse = np.unique(h, return_index=True, return_inverse=True)
-        inverse = inverse.reshape(-1)
+        first, inverse = _hash_groups(keys.view(np.uint64) @ _HASH[: keys.shape[1]])
         if np.array_equal(keys[first][inverse], keys):
             return first, inverse
     view = keys.view(np.dtype((np.void, keys.dtype.itemsize * keys.shape[1]))).ravel()
@@ -206,19 +248,17 @@ def _unique_rows(keys: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np
     return first, inverse.reshape(-1)
 
 
-def _unique_columns(columns: list[NDArray[np.int64]]) -> tuple[NDArray, NDArray]:
-    """:func:`_unique_rows` of the rows formed by ``columns`` (equal-length integer arrays),
-    without forming the (rows, columns) array: one hash per row, verified column by column."""
-    h = np.zeros(len(columns[0]), dtype=np.uint64)
-    for c, col in enumerate(columns):
-        h += col.astype(np.int64).view(np.uint64) * _HASH[c]
-    _, first, inverse = np.unique(h, return_index=True, return_inverse=True)
-    del h
-    inverse = inverse.reshape(-1)
-    rep = first[inverse]
-    if all(np.array_equal(col[rep], col) for col in columns):
+def _unique_columns(keys: NDArray[np.int64]) -> tuple[NDArray, NDArray]:
+    """:func:`_unique_rows` of the columns of a (C, M) integer array (the key parts of each of
+    M rows stored component by component): one hash per column, verified in one comparison.
+
+    The groups are numbered in the order of their hashes and ``first`` is the first column of
+    each, as ``np.unique(h, return_index=True, return_inverse=True)`` gives them.
+    """
+    first, inverse = _hash_groups(_HASH[: keys.shape[0]] @ keys.view(np.uint64))
+    if np.array_equal(keys[:, first[inverse]], keys):
         return first, inverse
-    return _unique_rows(np.column_stack(columns))  # a hash collision: exact sort
+    return _unique_rows(keys.T)  # a hash collision: exact sort
 
 
 @lru_cache(maxsize=16)
@@ -279,18 +319,20 @@ class PairTable:
         delta = ends - starts
         length = rownorm(delta)
         pts = np.concatenate([starts, ends])
-        res = 1e-12 * max(float(np.max(np.ptp(pts, axis=0))), 1e-300)
+        res = 1e-12 * max(float((pts.max(axis=0) - pts.min(axis=0)).max()), 1e-300)  # np.ptp
         feat = np.rint(np.column_stack([length / res, radius / res,
                                         delta / length[:, None] * 1e12])).astype(np.int64)
         _, cls = _unique_rows(feat)  # segments alike up to translation
         rows, cols = _triu(s)
-        columns = [cls[rows], cls[cols]]
-        columns += [np.rint((starts[cols, i] - starts[rows, i]) / res).astype(np.int64)
-                    for i in range(3)]  # the offset between the two segments
+        keys = np.empty((5 if near is None else 6, len(rows)), dtype=np.int64)
+        keys[0] = cls[rows]
+        keys[1] = cls[cols]
+        # the offset between the two segments
+        keys[2:5] = np.rint((starts[cols] - starts[rows]) / res).T
         if near is not None:
-            columns.append(near[rows, cols].astype(np.int64))
-        first, group = _unique_columns(columns)
-        del columns
+            keys[5] = near[rows, cols]
+        first, group = _unique_columns(keys)
+        del keys
         self.p = rows[first]
         self.q = cols[first]
         if near is not None:
@@ -341,8 +383,7 @@ def static_pair_integrals(
     far = np.flatnonzero(~pairs.near)
     if len(far):
         p, q = pairs.p[far], pairs.q[far]
-        u, w = gauss01(rules.static_far)
-        lam_w = _lambda(u) * w[:, None]  # (Q, 2)
+        u, lam_w = _shape_rule(rules.static_far)  # (Q,), (Q, 2)
         pp = starts[p][:, None, :] + u[None, :, None] * (ends - starts)[p][:, None, :]
         pq = starts[q][:, None, :] + u[None, :, None] * (ends - starts)[q][:, None, :]
         d2 = 0.0
@@ -357,11 +398,9 @@ def static_pair_integrals(
     near = np.flatnonzero(pairs.near)
     if len(near):
         rows, cols = pairs.p[near], pairs.q[near]
-        uo, wo = graded_gauss01(rules.near_outer)
+        uo, lam_o = _shape_rule(rules.near_outer, graded=True)  # (K,), (K, 2)
         if kernel == "exact":
-            tphi, wphi = start_graded_gauss01(rules.near_phi)
-            phi = np.pi * tphi  # (1/pi) int_0^pi dphi = int_0^1 dt
-            ring2 = (2.0 * np.sin(0.5 * phi)) ** 2  # times a^2
+            wphi, ring2 = _ring_rule(rules.near_phi)  # ring2 times a^2
         else:
             wphi = np.ones(1)
             ring2 = np.ones(1)
@@ -373,8 +412,9 @@ def static_pair_integrals(
         lq = length[cols][:, None, None]
         rho2 = a2[:, None, None] * ring2[None, None, :]
         j0, j1 = line_integrals(r_out[:, :, None, :], q0, tq, lq, rho2)  # (n, K, P)
-        jbar = np.stack([j0 @ wphi, j1 @ wphi], axis=-1)  # (n, K, 2)
-        lam_o = _lambda(uo) * wo[:, None]  # (K, 2)
+        jbar = np.empty((*j0.shape[:2], 2))  # (n, K, 2)
+        jbar[..., 0] = j0 @ wphi
+        jbar[..., 1] = j1 @ wphi
         vals = (lam_o.T @ jbar) * (INV4PI * length[rows])[:, None, None]
         # a self pair is stored transposed (as the full-matrix fill always did)
         diag = rows == cols
@@ -452,22 +492,22 @@ class DynamicPoints:
         self.s = len(starts)
         self.q = rules.dynamic
         u, w = gauss01(self.q)
-        self.lam_w = _lambda(u) * w[:, None]  # (Q, 2)
+        self.lam_w = _shape_rule(self.q)[1]  # (Q, 2)
         length = rownorm(ends - starts)
         pts = starts[:, None, :] + u[None, :, None] * (ends - starts)[:, None, :]  # (S, Q, 3)
         p, q = pairs.p, pairs.q
         fac = 2.0 if kernel == "exact" else 1.0
         d2 = 0.0
+        pts_p, pts_q = pts[p], pts[q]
         for c in range(3):
-            dc = pts[p][:, :, None, c] - pts[q][:, None, :, c]
+            dc = pts_p[:, :, None, c] - pts_q[:, None, :, c]
             d2 = d2 + dc * dc
         extra2 = fac * 0.5 * (radius[p] ** 2 + radius[q] ** 2)
         self.r = np.sqrt(d2 + extra2[:, None, None]).reshape(len(p), -1)  # (K, Q^2)
         self.inv4pir = INV4PI / self.r
         # weights of the point pairs (u, v) for the four shape pairs (i, j) and for the charge
         # (sum over the shapes: w_u w_v): (Q^2, 5), times L_p L_q of each group
-        lam2 = np.einsum("ui,vj->uvij", self.lam_w, self.lam_w).reshape(self.q**2, 4)
-        self.weights = np.column_stack([lam2, np.outer(w, w).reshape(-1)])
+        self.weights = _point_pair_weights(self.q)
         self.scale = length[p] * length[q]  # (K,)
         self.length = length
         self.w = w
@@ -484,7 +524,7 @@ class DynamicPoints:
     def set_caps(self, cap_pos: NDArray[np.float64], cap_radius: NDArray[np.float64]) -> None:
         """Prepare cap-to-segment and cap-to-cap distances (see :func:`cap_static_integrals`)."""
         rho2 = cap_rho2(cap_radius)
-        d2 = np.sum((cap_pos[:, None, :] - self.pts[None, :, :]) ** 2, axis=-1)
+        d2 = np.add.reduce((cap_pos[:, None, :] - self.pts[None, :, :]) ** 2, axis=-1)
         self.cap_r = np.sqrt(d2 + rho2[:, None])  # (C, SQ)
         dc = rownorm(cap_pos[:, None, :] - cap_pos[None, :, :])
         self.cap_cap_r = np.sqrt(dc**2 + rho2[:, None] + rho2[None, :])
@@ -501,6 +541,42 @@ class DynamicPoints:
         im = (im * self.cap_weights).reshape(len(k), c, self.s, self.q).sum(axis=-1)
         rc, ic = _dynamic_kernel(k, self.cap_cap_r, INV4PI / self.cap_cap_r)
         return re + 1j * im, rc + 1j * ic
+
+    def columns(self, k: NDArray[np.float64]
+                ) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
+        """Every dynamic integral for wavenumbers ``k``: pair groups and end caps together.
+
+        Returns the pair groups, (F, K, 5), as :meth:`pair_integrals`, and the end caps,
+        (F, C S + C^2), the flattened cap-segment then cap-cap integrals of
+        :meth:`cap_integrals` (the same numbers); the kernel runs once over all point pairs.
+        """
+        k = np.atleast_1d(np.asarray(k, dtype=float))
+        if not hasattr(self, "_r_all"):
+            r = [self.r.reshape(-1)]
+            if hasattr(self, "cap_r"):
+                r += [self.cap_r.reshape(-1), self.cap_cap_r.reshape(-1)]
+            self._r_all = np.concatenate(r)
+            self._inv4pir_all = INV4PI / self._r_all
+        re, im = _dynamic_kernel(k, self._r_all, self._inv4pir_all)  # (F, P) each
+        n_f = len(k)
+        n_k, q2 = self.r.shape
+        end = n_k * q2
+        pairs = np.empty((n_f, n_k, 5), dtype=complex)
+        pairs.real = re[:, :end].reshape(n_f, n_k, q2) @ self.weights
+        pairs.imag = im[:, :end].reshape(n_f, n_k, q2) @ self.weights
+        pairs *= self.scale[None, :, None]
+        if hasattr(self, "cap_r"):
+            c = self.cap_r.shape[0]
+            cs = c * self.s
+            stop = end + self.cap_r.size
+            caps = np.empty((n_f, cs + c * c), dtype=complex)
+            for part, dst in ((re, caps.real), (im, caps.imag)):
+                dst[:, :cs] = (part[:, end:stop].reshape(n_f, c, -1) * self.cap_weights).reshape(
+                    n_f, cs, self.q).sum(axis=-1)
+                dst[:, cs:] = part[:, stop:]
+        else:
+            caps = np.empty((n_f, 0), dtype=complex)
+        return pairs, caps
 
     def pair_integrals(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Dynamic integrals of every pair group for wavenumbers ``k`` (1/m): (F, K, 5).

@@ -200,7 +200,7 @@ class Solver:
             :meth:`radiated_power_far_field`, is the independent check used in the tests).
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
-        if np.any(f <= 0) or np.any(f > self.f_max_hz * (1 + 1e-9)):
+        if (f <= 0).any() or (f > self.f_max_hz * (1 + 1e-9)).any():
             raise SolverError(
                 f"frequencies must lie in (0, {self.f_max_hz:g}] Hz, the range the mesh was "
                 "built for"
@@ -214,7 +214,7 @@ class Solver:
             cur = np.linalg.solve(z_tot, rhs)  # (F, N, P)
         except np.linalg.LinAlgError as exc:  # pragma: no cover - singular only for bad meshes
             raise SolverError(f"impedance matrix is singular: {exc}") from exc
-        if not np.all(np.isfinite(cur)):
+        if not np.isfinite(cur).all():
             raise SolverError("non-finite currents: the impedance matrix is ill-conditioned")
         y = e.T @ cur  # (F, P, P)
         z = 1.0 / y if y.shape[-1] == 1 else np.linalg.inv(y)
