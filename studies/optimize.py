@@ -642,7 +642,8 @@ def _drive(opt: _Optimizer, progress: bool | None, described: str) -> bool:
         logger.info("study %r: %d of %d trial(s) to complete with %s on %s", ctx.name,
                     opt.target - opt.complete, opt.target, described, ctx.cluster.describe())
         with open_client(ctx.cluster) as client:
-            opt.client, opt.ac, opt.threads = client, as_completed(), WorkerThreads(client)
+            opt.client, opt.ac = client, as_completed(loop=client.loop)  # see run_points
+            opt.threads = WorkerThreads(client)
             try:
                 opt.loop()
             except KeyboardInterrupt:
