@@ -190,14 +190,6 @@ class MatrixFill:
         """Scalar potential (F, N*N) from the charge integrals: groups, cap-segment, cap-cap."""
         return self._assemble(None, a)
 
-    def _charge_sources(self, k: NDArray[np.float64], dyn: NDArray) -> NDArray:
-        """Dynamic charge integrals (F, K + C S + C^2): groups, then the end caps."""
-        if not self._n_caps:
-            return dyn[:, :, 4]
-        cs, cc = self._dyn.cap_integrals(k)
-        return np.concatenate([dyn[:, :, 4], cs.reshape(len(k), -1), cc.reshape(len(k), -1)],
-                              axis=1)
-
     def _gram_matrices(self) -> list[tuple[int, NDArray[np.int64], NDArray[np.int64], NDArray]]:
         """Gram matrices ``int f_m . f_n dl`` of each wire (for the conductor loss), sparse.
 
@@ -249,6 +241,24 @@ class MatrixFill:
         per = self._dyn.points_in_flight * _BYTES_PER_POINT + n * n * _BYTES_PER_ENTRY + 1
         return max(1, int(_CHUNK_BYTES // per))
 
+    def _sources(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
+        """Per-group integrals, static plus dynamic, at wavenumbers ``k``: (4K + K + C S + C^2, F).
+
+        Rows ``[:4K]`` are the shape integrals (m) of the vector potential, the rest the charge
+        integrals (groups, cap-segment, cap-cap) of the scalar potential; one complex column per
+        frequency (viewed as real: the (re, im) column pairs the assembly matrix multiplies).
+        """
+        n_vec = self._n_vector_src
+        n_pairs = self.pairs.size
+        pairs, caps = self._dyn.columns(k)  # (F, K, 5), (F, C S + C^2)
+        src = np.empty((self._amap.shape[1], len(k)), dtype=complex)
+        src[:n_vec] = pairs[:, :, :4].reshape(len(k), n_vec).T
+        src[n_vec: n_vec + n_pairs] = pairs[:, :, 4].T
+        src[n_vec + n_pairs:] = caps.T
+        src[:n_vec] += self._static_vector_src[:, None]
+        src[n_vec:] += self._static_charge_src[:, None]
+        return src
+
     def potentials(self, f_hz: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
         """Exact vector- and scalar-potential matrices ``V``, ``S``: each (F, N, N).
 
@@ -256,17 +266,15 @@ class MatrixFill:
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         n = self.n_unknowns
+        n_vec = self._n_vector_src
         vec = np.empty((len(f), n, n), dtype=complex)
         sca = np.empty((len(f), n, n), dtype=complex)
         step = self._chunk()
         for i0 in range(0, len(f), step):
             sl = slice(i0, i0 + step)
-            k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
-            dyn = self._dyn.pair_integrals(k)  # (F, K, 5)
-            vec[sl] = self._vector(dyn[:, :, :4].reshape(len(k), -1)
-                                   + self._static_vector_src).reshape(-1, n, n)
-            sca[sl] = self._scalar(self._charge_sources(k, dyn)
-                                   + self._static_charge_src).reshape(-1, n, n)
+            src = self._sources(2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0))
+            vec[sl] = self._vector(src[:n_vec].T).reshape(-1, n, n)
+            sca[sl] = self._scalar(src[n_vec:].T).reshape(-1, n, n)
         return vec, sca
 
     def efie_direct(self, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
@@ -278,7 +286,6 @@ class MatrixFill:
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         n = self.n_unknowns
         n_vec = self._n_vector_src
-        n_pairs = self.pairs.size
         out = np.empty((len(f), n, n), dtype=complex)
         step = self._chunk()
         for i0 in range(0, len(f), step):
@@ -286,16 +293,8 @@ class MatrixFill:
             k = 2.0 * np.pi * f[sl] * np.sqrt(MU0 * EPS0)
             jwmu = 1j * 2.0 * np.pi * f[sl] * MU0
             jweps_inv = 1.0 / (1j * 2.0 * np.pi * f[sl] * EPS0)
-            pairs, caps = self._dyn.columns(k)  # (F, K, 5), (F, C S + C^2)
-            # the source, one complex column per frequency: viewed as real it is the (re, im)
-            # column pairs the assembly matrix multiplies
-            src = np.empty((self._amap.shape[1], len(k)), dtype=complex)
-            src[:n_vec] = pairs[:, :, :4].reshape(len(k), n_vec).T
-            src[n_vec: n_vec + n_pairs] = pairs[:, :, 4].T
-            src[n_vec + n_pairs:] = caps.T
-            src[:n_vec] += self._static_vector_src[:, None]
+            src = self._sources(k)
             src[:n_vec] *= jwmu[None, :]
-            src[n_vec:] += self._static_charge_src[:, None]
             src[n_vec:] *= jweps_inv[None, :]
             z = self._amap @ src.view(float)  # (N*N, 2F): columns re, im of each frequency
             out[sl] = z.view(complex).T.reshape(-1, n, n)

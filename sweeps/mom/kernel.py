@@ -530,25 +530,15 @@ class DynamicPoints:
         self.cap_cap_r = np.sqrt(dc**2 + rho2[:, None] + rho2[None, :])
         self.cap_weights = (self.w[None, :] * self.length[:, None]).reshape(-1)  # (SQ,)
 
-    def cap_integrals(
-        self, k: NDArray[np.float64]
-    ) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
-        """Dynamic cap integrals for wavenumbers ``k``: shapes (F, C, S) and (F, C, C)."""
-        k = np.atleast_1d(np.asarray(k, dtype=float))
-        c = self.cap_r.shape[0]
-        re, im = _dynamic_kernel(k, self.cap_r, INV4PI / self.cap_r)
-        re = (re * self.cap_weights).reshape(len(k), c, self.s, self.q).sum(axis=-1)
-        im = (im * self.cap_weights).reshape(len(k), c, self.s, self.q).sum(axis=-1)
-        rc, ic = _dynamic_kernel(k, self.cap_cap_r, INV4PI / self.cap_cap_r)
-        return re + 1j * im, rc + 1j * ic
-
     def columns(self, k: NDArray[np.float64]
                 ) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
         """Every dynamic integral for wavenumbers ``k``: pair groups and end caps together.
 
-        Returns the pair groups, (F, K, 5), as :meth:`pair_integrals`, and the end caps,
-        (F, C S + C^2), the flattened cap-segment then cap-cap integrals of
-        :meth:`cap_integrals` (the same numbers); the kernel runs once over all point pairs.
+        Returns the pair groups, (F, K, 5): columns 0-3 ``A_pq[i, j]`` for ``(i, j) = (0, 0),
+        (0, 1), (1, 0), (1, 1)``, column 4 their sum (the charge integral of the scalar
+        potential), in m; and the end caps, (F, C S + C^2): the cap-segment integrals (the
+        segment's Gauss points weighted by ``w L``), then the cap-cap ones, flattened. The
+        kernel runs once over all point pairs.
         """
         k = np.atleast_1d(np.asarray(k, dtype=float))
         if not hasattr(self, "_r_all"):
@@ -577,20 +567,6 @@ class DynamicPoints:
         else:
             caps = np.empty((n_f, 0), dtype=complex)
         return pairs, caps
-
-    def pair_integrals(self, k: NDArray[np.float64]) -> NDArray[np.complex128]:
-        """Dynamic integrals of every pair group for wavenumbers ``k`` (1/m): (F, K, 5).
-
-        Columns 0-3: ``A_pq[i, j]`` for ``(i, j) = (0, 0), (0, 1), (1, 0), (1, 1)``; column 4:
-        their sum (the charge integral of the scalar potential), in m.
-        """
-        k = np.atleast_1d(np.asarray(k, dtype=float))
-        re, im = _dynamic_kernel(k, self.r, self.inv4pir)  # (F, K, Q^2) each
-        out = np.empty((len(k), self.r.shape[0], 5), dtype=complex)
-        out.real = re @ self.weights
-        out.imag = im @ self.weights
-        out *= self.scale[None, :, None]
-        return out
 
 # --------------------------------------------------------------------------- end caps
 #

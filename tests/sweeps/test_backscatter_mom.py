@@ -68,8 +68,9 @@ def _two_routes(design: Design, band: Band = BAND) -> tuple[np.ndarray, np.ndarr
         g_c = power_wave_gamma(z_closed[i], za[i])
         g_o = power_wave_gamma(z_open[i], za[i])
         routes_metrics.append(float(differential_rcs_m2(fi, gain, g_c, g_o)))
-        cur_c = solver.scatter([fi], -r_hat, pol, z_closed[i:i + 1, None])[0]
-        cur_o = solver.scatter([fi], -r_hat, pol, z_open[i:i + 1, None])[0]
+        # both switch states from one solve (a leading axis of load states)
+        states = np.array([z_closed[i:i + 1, None], z_open[i:i + 1, None]])
+        cur_c, cur_o = solver.scatter([fi], -r_hat, pol, states)[:, 0]
         routes_mom.append(float(rcs(solver.points, cur_c - cur_o, k, r_hat[None], pol)[0, 0]))
     return np.array(routes_metrics), np.array(routes_mom), ev
 
