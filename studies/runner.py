@@ -2,10 +2,10 @@
 
 The client (this process) owns the store; workers only run :func:`evaluate_batch`, a pure
 function of the study config and a list of ``(point_id, params)`` that returns one
-:class:`~studies.points.Record` per point. The client keeps a few batches per worker thread in
-flight, sizes batches from the measured time per point (so that one batch takes about
-``target_batch_s``; bounded by ``max_batch`` and shrunk near the end so no worker idles), and
-writes every finished batch in one transaction.
+:class:`~studies.points.Record` per point. The client keeps two batches per worker thread in
+flight, sizes them from the measured time per point (:class:`studies.batching.BatchPlanner`:
+few large batches, and a last round sized so that the workers finish together), and writes
+every finished batch in one transaction.
 
 Failures
 --------
@@ -29,7 +29,6 @@ import logging
 import math
 import os
 import socket
-import statistics
 import sys
 import time
 import uuid
@@ -39,6 +38,7 @@ from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Literal, get_args
 
+from studies.batching import BatchPlanner
 from studies.interrupts import SafeInterrupts
 from studies.lease import Lease
 from studies.points import Point, Record
@@ -367,7 +367,7 @@ def run_points(
     target_batch_s: float = 1.0,
     min_batch_s: float = 0.1,
     max_batch: int = 64,
-    in_flight_per_worker: int = 3,
+    in_flight_per_worker: int = 2,
 ) -> RunStats:
     """Evaluate ``todo`` on ``client``'s cluster, storing every finished batch.
 
@@ -391,13 +391,14 @@ def run_points(
     target_batch_s : float
         Wanted wall time of one batch in s.
     min_batch_s : float
-        Smallest wall time (s) of the batches near the end of the queue, which shrink so that
-        the workers finish together: each batch costs the client a store transaction and the
-        scheduler a round trip, a few ms, which single cheap designs would not cover.
+        Smallest wall time (s) of a batch but for the last round, in which the points left are
+        shared out so that the workers finish together: each batch costs the client a store
+        transaction and the scheduler a round trip, about 10 ms of CPU (measured), which
+        single cheap designs would not cover.
     max_batch : int
         Largest batch.
     in_flight_per_worker : int
-        Batches kept queued per worker thread.
+        Batches kept submitted (running or queued) per worker thread.
 
     Returns
     -------
@@ -412,7 +413,8 @@ def run_points(
     queue: deque[Point] = deque(todo)
     retry: deque[Point] = deque()  # resubmitted alone after a lost batch
     inflight: dict[Any, list[Point]] = {}
-    times: deque[float] = deque(maxlen=256)
+    planner = BatchPlanner(target_batch_s=target_batch_s, min_batch_s=min_batch_s,
+                           max_batch=max_batch, in_flight_per_worker=in_flight_per_worker)
     # on this client's event loop: the default (the newest client's loop) would wait on these
     # futures from another loop when a process holds two clients, and then hear of each
     # finished batch only at that loop's next timer (measured: 50-200 ms late, a worker idle)
@@ -426,31 +428,22 @@ def run_points(
         stats.workers = max(stats.workers, n)
         return max(1, n)
 
-    def batch_size() -> int:
-        tail = math.ceil(len(queue) / (slots() * in_flight_per_worker))
-        if not times:
-            # no timing yet: small first batches (an unknown design may take long), but not
-            # single points, whose scheduling and store overhead would dominate cheap designs
-            return max(1, min(4, tail))
-        per = max(statistics.median(times), 1e-6)
-        size = max(1, min(max_batch, round(target_batch_s / per)))
-        floor = max(1, round(min_batch_s / per))  # the tail's batches: no smaller than this
-        return max(1, min(size, max(tail, floor)))
+    def send(batch: list[Point], n: int, now: float) -> None:
+        key = f"filamant-{tag}-{len(stats.batch_sizes)}-{batch[0].point_id}"
+        fut = client.submit(task, study_json, [(p.point_id, p.params) for p in batch],
+                            pure=False, key=key)
+        stats.batch_sizes.append(len(batch))
+        inflight[fut] = batch
+        planner.submitted(key, len(batch), now, n)
+        ac.add(fut)
 
     def submit() -> None:
-        limit = slots() * in_flight_per_worker
-        while (queue or retry) and len(inflight) < limit:
-            if retry:
-                batch = [retry.popleft()]
-            else:
-                k = batch_size()
-                batch = [queue.popleft() for _ in range(min(k, len(queue)))]
-            key = f"filamant-{tag}-{len(stats.batch_sizes)}-{batch[0].point_id}"
-            fut = client.submit(task, study_json, [(p.point_id, p.params) for p in batch],
-                                pure=False, key=key)
-            stats.batch_sizes.append(len(batch))
-            inflight[fut] = batch
-            ac.add(fut)
+        n, now = slots(), time.perf_counter()
+        while retry and len(inflight) < n * in_flight_per_worker:
+            send([retry.popleft()], n, now)
+        if queue:
+            for k in planner.next_sizes(len(queue), n, now):
+                send([queue.popleft() for _ in range(k)], n, now)
 
     def handle(fut: Any, batch: list[Point]) -> None:
         status = fut.status
@@ -460,16 +453,19 @@ def run_points(
             if sorted(got) != sorted(p.point_id for p in batch):
                 raise ClusterError(f"cluster: a batch returned results for other points "
                                    f"({got[:3]}...); refusing to store them")
+            planner.finished(fut.key, time.perf_counter(),
+                             [r.elapsed_s for r in records if r.ok])
+            submit()  # the freed worker's next batch goes out before this one is stored
             store.write_batch(study, records, owner=lease.owner)
             stats.batches += 1
             stats.evaluated += len(records)
             stats.failed += sum(not r.ok for r in records)
-            times.extend(r.elapsed_s for r in records if r.ok)
             bar.update(len(records))
             return
         exc = fut.exception() if status == "error" else None
         if status in ("cancelled", "lost") or isinstance(exc, KilledWorker):
             stats.lost_batches += 1
+            planner.finished(fut.key, time.perf_counter(), [])
             reason = f"worker died while evaluating it ({type(exc).__name__ if exc else status})"
             ids = [p.point_id for p in batch]
             gone = set(store.record_lost_attempt(study, ids, reason, owner=lease.owner,
@@ -507,7 +503,7 @@ def run_points(
         finally:
             bar.close()
             stats.elapsed_s = time.perf_counter() - t_start
-            stats.seconds_per_point = statistics.median(times) if times else None
+            stats.seconds_per_point = planner.per_point_s
     return stats
 
 
@@ -524,6 +520,10 @@ def _drive(interrupts: SafeInterrupts, ac: Any, inflight: dict[Any, list[Point]]
             raise StoreError(f"{store.display_url}: study {study!r}: the run lease was taken "
                              "over by another client; stopping")
         submit()
+        # released only now that the next batches are out: the client sends the scheduler
+        # its messages at most every 10 ms, so a release sent just before a submission could
+        # hold that submission (and the freed worker) back that long
+        fut.release()
     interrupts.check()
 
 

@@ -1,0 +1,173 @@
+"""How many points go into each batch a study run submits (client side, no dask here).
+
+A batch is one dask task: it costs the client and the scheduler a round trip and the store a
+transaction, about 10 ms of CPU on a 2-core machine whose cores the local workers share
+(measured with ``filamant bench``). Few, large batches keep that small; but the run ends when
+the last worker finishes, so the batches near the end must leave every worker thread done at
+about the same time. :class:`BatchPlanner` does both:
+
+1. **Probe.** Until a point's time is known, one batch of at most ``probe`` points per worker
+   thread: an unknown design may take long.
+2. **Factoring.** Then each new batch takes ``1/(threads * in_flight)`` of the points left, at
+   most ``target_batch_s`` of work and at least ``min_batch_s``, so the batches shrink as the
+   queue empties (Hummel, Schonberg & Flynn, "Factoring: a method for scheduling parallel
+   loops", Commun. ACM 35(8), 1992).
+3. **Last round.** Once what is left fits in ``min_batch_s`` per thread, it is split at once
+   into one batch per thread, sized so that every thread is predicted to finish at the same
+   moment: the threads' free times are predicted from the batches running and queued (each
+   started when the client heard of a thread becoming free; the scheduler hands queued batches
+   out first in, first out) and the points are poured over them like water over an uneven
+   floor.
+
+The planner only counts; :func:`studies.runner.run_points` owns the futures and tells it what
+started and finished.
+"""
+
+from __future__ import annotations
+
+import heapq
+import math
+import statistics
+from collections import deque
+from collections.abc import Hashable
+from dataclasses import dataclass, field
+
+__all__ = ["BatchPlanner", "water_fill"]
+
+
+def water_fill(free_s: list[float], points: int, per_s: float) -> list[int]:
+    """Split ``points`` over threads free at ``free_s`` so that all end together.
+
+    Parameters
+    ----------
+    free_s : list of float
+        When each thread is predicted to be free, in s (any common origin).
+    points : int
+        Points to share out.
+    per_s : float
+        Time of one point in s (> 0).
+
+    Returns
+    -------
+    list of int
+        Points per thread, in the order of ``free_s``; they sum to ``points``. A thread free
+        later gets fewer (none when it is busy past the common end).
+    """
+    if points <= 0:
+        return [0] * len(free_s)
+    order = sorted(range(len(free_s)), key=free_s.__getitem__)
+    f = [free_s[i] for i in order]
+    # the common end T: the smallest k threads (earliest free) share everything when
+    # T = (sum f[:k] + points * per) / k stays at or below f[k]
+    k, end = 1, f[0] + points * per_s
+    while k < len(f):
+        t = (sum(f[: k + 1]) + points * per_s) / (k + 1)
+        if t <= f[k]:
+            break
+        k, end = k + 1, t
+    exact = [max(0.0, (end - fi) / per_s) if j < k else 0.0 for j, fi in enumerate(f)]
+    share = [math.floor(x) for x in exact]
+    # hand the rounding remainder to the largest fractional parts (the earliest free first)
+    rest = points - sum(share)
+    for j in sorted(range(k), key=lambda j: (share[j] - exact[j], f[j]))[:rest]:
+        share[j] += 1
+    out = [0] * len(free_s)
+    for j, i in enumerate(order):
+        out[i] = share[j]
+    return out
+
+
+@dataclass
+class BatchPlanner:
+    """Batch sizes for one run (see the module docstring for the rules).
+
+    Parameters
+    ----------
+    target_batch_s : float
+        Wanted work of one batch, in s.
+    min_batch_s : float
+        Least work of one batch but for the last round, in s.
+    max_batch : int
+        Most points in one batch.
+    in_flight_per_worker : int
+        Batches kept submitted per worker thread (running or queued at the scheduler).
+    probe : int
+        Points in each of the first batches, before any point's time is known.
+    """
+
+    target_batch_s: float = 1.0
+    min_batch_s: float = 0.1
+    max_batch: int = 64
+    in_flight_per_worker: int = 2
+    probe: int = 4
+    times: deque[float] = field(default_factory=lambda: deque(maxlen=256))
+    _running: dict[Hashable, tuple[float, int]] = field(default_factory=dict)
+    _waiting: deque[tuple[Hashable, int]] = field(default_factory=deque)
+    _last_round: bool = False
+
+    # -- what the runner reports ----------------------------------------------------------
+
+    def submitted(self, key: Hashable, size: int, now: float, threads: int) -> None:
+        """A batch of ``size`` points went out at ``now`` (s) to a cluster of ``threads``."""
+        if len(self._running) < threads:
+            self._running[key] = (now, size)
+        else:
+            self._waiting.append((key, size))
+
+    def finished(self, key: Hashable, now: float, elapsed_s: list[float]) -> None:
+        """The batch ``key`` came back at ``now`` (s) with these per-point times (s)."""
+        self.times.extend(elapsed_s)
+        if self._running.pop(key, None) is None:  # came back before it was thought started
+            self._waiting = deque(w for w in self._waiting if w[0] != key)
+        elif self._waiting:  # the freed thread takes the oldest queued batch
+            k, size = self._waiting.popleft()
+            self._running[k] = (now, size)
+
+    # -- what it asks ---------------------------------------------------------------------
+
+    @property
+    def per_point_s(self) -> float | None:
+        """Median time of one point in s, or None before any is known."""
+        return max(statistics.median(self.times), 1e-6) if self.times else None
+
+    def next_sizes(self, queued: int, threads: int, now: float) -> list[int]:
+        """Sizes of the batches to submit now, taking ``queued`` points left (in order).
+
+        ``threads`` is the cluster's worker-thread count (at least 1).
+        """
+        threads = max(1, threads)
+        in_flight = len(self._running) + len(self._waiting)
+        per = self.per_point_s
+        if per is None:
+            free = threads - in_flight
+            out = []
+            while free > 0 and queued > 0:
+                out.append(min(self.probe, max(1, math.ceil(queued / threads)), queued))
+                queued -= out[-1]
+                free -= 1
+            return out
+        size = max(1, min(self.max_batch, round(self.target_batch_s / per)))
+        floor = max(1, min(size, round(self.min_batch_s / per)))
+        if queued and not self._last_round and queued <= threads * floor:
+            shares = [s for s in water_fill(self._free_times(threads, now, per), queued, per)
+                      if s]
+            if max(shares) <= size:
+                self._last_round = True
+                return sorted(shares, reverse=True)  # the earliest free thread takes the first
+        out = []
+        limit = threads * self.in_flight_per_worker
+        while queued > 0 and in_flight < limit:
+            k = min(size, max(floor, math.ceil(queued / limit)), queued)
+            out.append(k)
+            queued -= k
+            in_flight += 1
+        return out
+
+    def _free_times(self, threads: int, now: float, per: float) -> list[float]:
+        """Predicted free time of each worker thread (s), after what is running and queued."""
+        free = [max(now, start + size * per) for start, size in self._running.values()]
+        free += [now] * max(0, threads - len(free))
+        heapq.heapify(free)
+        for _, size in self._waiting:
+            heapq.heappush(free, heapq.heappop(free) + size * per)
+        return sorted(free)[:threads]
