@@ -1,0 +1,116 @@
+"""Batch planning (studies.batching): conservation and equal finish times.
+
+The checks are against the definitions, not against numbers of ours: every planned point is
+submitted exactly once, in order (conservation); water-filling leaves every lane it uses
+finishing at one common time (its defining condition, within one point for whole points);
+factoring hands out shrinking parts of what is left (Hummel, Schonberg & Flynn, Commun. ACM
+35(8), 1992). A small discrete-event model of lanes that run their batches one after another
+stands in for the cluster; the real cluster is in test_runner.py.
+"""
+
+from __future__ import annotations
+
+import heapq
+import itertools
+
+import pytest
+
+from studies.batching import BatchPlanner, water_fill
+
+
+def test_water_fill_shares_everything_and_ends_together():
+    free = [0.0, 0.05, 0.02, 0.30]
+    per = 0.01
+    shares = water_fill(free, 17, per)
+    assert sum(shares) == 17
+    ends = [f + s * per for f, s in zip(free, shares, strict=True) if s]
+    assert max(ends) - min(ends) <= per + 1e-12
+    assert shares[3] == 0  # busy past the common end: gets nothing
+    # a lane that is free earlier never gets less
+    assert shares[0] >= shares[2] >= shares[1]
+
+
+def test_water_fill_equal_lanes_split_evenly():
+    assert sorted(water_fill([1.0, 1.0, 1.0], 10, 0.5)) == [3, 3, 4]
+    assert water_fill([0.0, 0.0], 0, 0.1) == [0, 0]
+    assert water_fill([], 5, 0.1) == []
+
+
+def _simulate(planner: BatchPlanner, lanes: int, points: int, per_s: float, latency_s: float):
+    """Lanes run their batches in order; the client hears of each end ``latency_s`` later."""
+    lane_ids = [(f"tcp://w{i}", 0) for i in range(lanes)]
+    busy = dict.fromkeys(lane_ids, 0.0)
+    last_end = dict.fromkeys(lane_ids, 0.0)
+    events: list[tuple[float, int, int, tuple[str, int]]] = []
+    keys = itertools.count()
+    sizes: list[int] = []
+    left = points
+
+    def dispatch(now: float) -> None:
+        nonlocal left
+        for size, lane in planner.next_batches(left, lane_ids, now):
+            key = next(keys)
+            planner.submitted(key, size, lane, now)
+            start = max(now, busy[lane])
+            busy[lane] = start + size * per_s
+            heapq.heappush(events, (busy[lane] + latency_s, key, size, lane))
+            sizes.append(size)
+            left -= size
+
+    dispatch(0.0)
+    while events:
+        heard, key, size, lane = heapq.heappop(events)
+        last_end[lane] = max(last_end[lane], heard - latency_s)
+        planner.finished(key, heard, [per_s] * size)
+        dispatch(heard)
+    return sizes, last_end, left
+
+
+@pytest.mark.parametrize("lanes", [1, 2, 3, 8])
+@pytest.mark.parametrize("per_lane", [21.4, 64, 300])
+def test_plan_covers_every_point_once_and_lanes_finish_together(lanes, per_lane):
+    per, latency, points = 0.009, 0.01, round(per_lane * lanes)
+    planner = BatchPlanner(target_batch_s=1.0, min_batch_s=0.1)
+    sizes, ends, left = _simulate(planner, lanes, points, per, latency)
+    assert left == 0 and sum(sizes) == points and min(sizes) >= 1
+    # equal finish: the spread is one point plus the client's late hearing of a start
+    assert max(ends.values()) - min(ends.values()) <= per + 2 * latency + 1e-9
+    # the makespan: the ideal share per lane, one probe's latency, and that spread
+    assert max(ends.values()) <= points * per / lanes + per + 3 * latency + 1e-9
+    # few batches: in a short run the probes, a few factoring parts and one last round; in a
+    # long one, at the ~10 ms of client CPU a batch costs (measured), under 5 % of the work
+    if per_lane <= 64:
+        assert len(sizes) <= 6 * lanes
+    else:
+        assert len(sizes) * 0.010 <= 0.05 * points * per
+
+
+def test_probe_batches_until_a_time_is_known():
+    planner = BatchPlanner(probe=4)
+    lanes = BatchPlanner.lanes_of({"tcp://a": 1, "tcp://b": 2})
+    first = planner.next_batches(100, lanes, 0.0)
+    assert [s for s, _ in first] == [4, 4, 4] and {ln for _, ln in first} == set(lanes)
+    for i, (s, lane) in enumerate(first):
+        planner.submitted(i, s, lane, 0.0)
+    assert planner.next_batches(88, lanes, 0.0) == []  # nothing more before a timing
+
+
+def test_factoring_sizes_stay_within_bounds():
+    per = 0.001
+    planner = BatchPlanner(target_batch_s=0.05, min_batch_s=0.01, max_batch=64)
+    sizes, _, _ = _simulate(planner, 2, 2000, per, 0.002)
+    body = sizes[2:-2]  # after the probes, before the last round
+    assert max(sizes) <= 50  # target_batch_s / per
+    assert min(body) >= 10  # min_batch_s / per
+    assert body == sorted(body, reverse=True) or max(body) == 50
+
+
+def test_unknown_and_repeated_reports_are_harmless():
+    planner = BatchPlanner()
+    planner.finished("never-sent", 1.0, [0.01])
+    lane = ("tcp://a", 0)
+    planner.submitted("k", 3, lane, 0.0)
+    planner.finished("k", 0.1, [0.01] * 3)
+    planner.finished("k", 0.2, [])
+    assert planner.per_point_s == pytest.approx(0.01)
+    assert planner.next_batches(5, [lane], 0.3) == [(5, lane)]
