@@ -1,53 +1,50 @@
-"""Which points go into each batch a study run submits, and to which worker (client side).
+"""How many points go into each batch a study run submits (client side, no dask here).
 
 A batch is one dask task: it costs the client and the scheduler a round trip and the store a
 transaction, about 10 ms of CPU on a 2-core machine whose cores the local workers share
 (measured with ``filamant bench``). Few, large batches keep that small; but the run ends when
 the last worker finishes, so the batches near the end must leave every worker thread done at
-about the same time. :class:`BatchPlanner` does both, with each worker thread a *lane* whose
-batches run one after another:
+about the same time. :class:`BatchPlanner` does both:
 
-1. **Probe.** Until a point's time is known, one batch of at most ``probe`` points per lane:
-   an unknown design may take long.
-2. **Factoring.** Then each new batch takes ``1/(lanes * in_flight)`` of the points left, at
+1. **Probe.** Until a point's time is known, one batch of at most ``probe`` points per worker
+   thread: an unknown design may take long.
+2. **Factoring.** Then each new batch takes ``1/(threads * in_flight)`` of the points left, at
    most ``target_batch_s`` of work and at least ``min_batch_s``, so the batches shrink as the
    queue empties (Hummel, Schonberg & Flynn, "Factoring: a method for scheduling parallel
-   loops", Commun. ACM 35(8), 1992). Each goes to the lane predicted to be free first.
-3. **Last round.** Once what is left fits in ``min_batch_s`` per lane, it is split at once into
-   one batch per lane, sized so that every lane is predicted to finish at the same moment
-   (:func:`water_fill`): a lane's free time is when its running batch started (when the client
-   heard of the one before it finishing) plus the work of that batch and the ones queued
-   behind it, at the median time per point.
+   loops", Commun. ACM 35(8), 1992).
+3. **Last round.** Once what is left fits in ``min_batch_s`` per thread, it is split at once
+   into one batch per thread, sized so that every thread is predicted to finish at the same
+   moment (:func:`water_fill`): a thread's free time is when its running batch started (when
+   the client heard of a thread becoming free) plus that batch's work, with the queued batches
+   handed to the threads first in, first out, at the median time per point.
 
-The runner submits each batch to its lane's worker as a loose restriction (another worker may
-take it if that one dies). Left to itself, the scheduler places a task by the mean duration of
-earlier tasks of its kind, which cannot tell a 4-point batch from a 26-point one: two large
-batches ended up on one worker and the other sat idle (seen with ``filamant bench``).
-
-The planner only counts and predicts; :func:`studies.runner.run_points` owns the futures.
+The batches form one queue that the worker threads take from as they free, so a thread that
+runs slower (on a shared machine one worker can be 20-30 % slower than the other within one
+run) simply takes less. Pinning each batch to the thread predicted to be free first was
+measured worse: ``two_worker_efficiency`` 0.78-0.81 against 0.82-0.87, alternated in one
+session. The planner only counts; :func:`studies.runner.run_points` owns the futures and tells
+it what went out and what came back.
 """
 
 from __future__ import annotations
 
+import heapq
 import math
 import statistics
 from collections import deque
-from collections.abc import Hashable, Mapping
+from collections.abc import Hashable
 from dataclasses import dataclass, field
 
-__all__ = ["BatchPlanner", "Lane", "water_fill"]
-
-#: A worker thread: ``(worker address, thread index)``.
-Lane = tuple[str, int]
+__all__ = ["BatchPlanner", "water_fill"]
 
 
 def water_fill(free_s: list[float], points: int, per_s: float) -> list[int]:
-    """Split ``points`` over lanes free at ``free_s`` so that all end together.
+    """Split ``points`` over threads free at ``free_s`` so that all end together.
 
     Parameters
     ----------
     free_s : list of float
-        When each lane is predicted to be free, in s (any common origin).
+        When each thread is predicted to be free, in s (any common origin).
     points : int
         Points to share out.
     per_s : float
@@ -56,15 +53,15 @@ def water_fill(free_s: list[float], points: int, per_s: float) -> list[int]:
     Returns
     -------
     list of int
-        Points per lane, in the order of ``free_s``; they sum to ``points``. A lane free later
-        gets fewer (none when it is busy past the common end).
+        Points per thread, in the order of ``free_s``; they sum to ``points``. A thread free
+        later gets fewer (none when it is busy past the common end).
     """
     if points <= 0 or not free_s:
         return [0] * len(free_s)
     order = sorted(range(len(free_s)), key=free_s.__getitem__)
     f = [free_s[i] for i in order]
-    # the common end of the k earliest lanes, (sum f[:k] + points * per) / k, while it is
-    # later than the next lane's free time that lane joins in
+    # the common end of the k earliest threads, (sum f[:k] + points * per) / k; while it is
+    # later than the next thread's free time, that thread joins in
     k, end = 1, f[0] + points * per_s
     while k < len(f) and end > f[k]:
         k += 1
@@ -81,15 +78,8 @@ def water_fill(free_s: list[float], points: int, per_s: float) -> list[int]:
 
 
 @dataclass
-class _Queued:
-    key: Hashable
-    size: int
-    started_s: float | None = None  # when it began running (predicted), None while queued
-
-
-@dataclass
 class BatchPlanner:
-    """Batch sizes and lanes for one run (see the module docstring for the rules).
+    """Batch sizes for one run (see the module docstring for the rules).
 
     Parameters
     ----------
@@ -100,7 +90,7 @@ class BatchPlanner:
     max_batch : int
         Most points in one batch.
     in_flight_per_worker : int
-        Batches kept submitted per lane (running or queued).
+        Batches kept submitted per worker thread (running or queued).
     probe : int
         Points in each of the first batches, before any point's time is known.
     """
@@ -111,33 +101,27 @@ class BatchPlanner:
     in_flight_per_worker: int = 2
     probe: int = 4
     times: deque[float] = field(default_factory=lambda: deque(maxlen=256))
-    _lanes: dict[Lane, deque[_Queued]] = field(default_factory=dict)
-    _lane_of: dict[Hashable, Lane] = field(default_factory=dict)
+    _running: dict[Hashable, tuple[float, int]] = field(default_factory=dict)
+    _waiting: deque[tuple[Hashable, int]] = field(default_factory=deque)
     _last_round: bool = False
-
-    @staticmethod
-    def lanes_of(workers: Mapping[str, int]) -> list[Lane]:
-        """The lanes of workers given as ``{address: threads}``."""
-        return [(addr, i) for addr, n in sorted(workers.items()) for i in range(max(0, n))]
 
     # -- what the runner reports ----------------------------------------------------------
 
-    def submitted(self, key: Hashable, size: int, lane: Lane, now: float) -> None:
-        """A batch of ``size`` points went out at ``now`` (s) to ``lane``."""
-        q = self._lanes.setdefault(lane, deque())
-        q.append(_Queued(key, size, None if q else now))
-        self._lane_of[key] = lane
+    def submitted(self, key: Hashable, size: int, now: float, threads: int) -> None:
+        """A batch of ``size`` points went out at ``now`` (s) to a cluster of ``threads``."""
+        if len(self._running) < threads:
+            self._running[key] = (now, size)
+        else:
+            self._waiting.append((key, size))
 
     def finished(self, key: Hashable, now: float, elapsed_s: list[float]) -> None:
         """The batch ``key`` came back at ``now`` (s) with these per-point times (s)."""
         self.times.extend(elapsed_s)
-        lane = self._lane_of.pop(key, None)
-        q = self._lanes.get(lane) if lane is not None else None
-        if not q:
-            return
-        self._lanes[lane] = q = deque(b for b in q if b.key != key)
-        if q and q[0].started_s is None:  # the lane moves on to its next batch
-            q[0].started_s = now
+        if self._running.pop(key, None) is None:  # came back before it was thought started
+            self._waiting = deque(w for w in self._waiting if w[0] != key)
+        elif self._waiting:  # the freed thread takes the oldest queued batch
+            k, size = self._waiting.popleft()
+            self._running[k] = (now, size)
 
     # -- what it asks ---------------------------------------------------------------------
 
@@ -146,46 +130,46 @@ class BatchPlanner:
         """Median time of one point in s, or None before any is known."""
         return max(statistics.median(self.times), 1e-6) if self.times else None
 
-    def next_batches(self, queued: int, lanes: list[Lane], now: float) -> list[tuple[int, Lane]]:
-        """The batches to submit now, as ``(size, lane)``, taking ``queued`` points in order.
+    def next_sizes(self, queued: int, threads: int, now: float) -> list[int]:
+        """Sizes of the batches to submit now, taking ``queued`` points left (in order).
 
-        ``lanes`` are the cluster's worker threads now (:meth:`lanes_of`).
+        ``threads`` is the cluster's worker-thread count now (at least 1 is assumed). When
+        nothing is in flight and ``queued > 0`` the answer is never empty.
         """
-        if not lanes or queued <= 0:
-            return []
-        out: list[tuple[int, Lane]] = []
+        threads = max(1, threads)
+        in_flight = len(self._running) + len(self._waiting)
+        out: list[int] = []
         per = self.per_point_s
         if per is None:
-            for lane in lanes:
-                if queued > 0 and not self._lanes.get(lane):
-                    k = min(self.probe, max(1, math.ceil(queued / len(lanes))), queued)
-                    out.append((k, lane))
-                    queued -= k
+            share = min(self.probe, max(1, math.ceil(queued / threads)))
+            while in_flight < threads and queued > 0:
+                out.append(min(share, queued))
+                queued -= out[-1]
+                in_flight += 1
             return out
         size = max(1, min(self.max_batch, round(self.target_batch_s / per)))
         floor = max(1, min(size, round(self.min_batch_s / per)))
-        free = {lane: self._free_s(lane, now, per) for lane in lanes}
-        limit = len(lanes) * self.in_flight_per_worker
-        in_flight = sum(len(self._lanes.get(lane, ())) for lane in lanes)
-        while queued > len(lanes) * floor and in_flight < limit:
+        limit = threads * self.in_flight_per_worker
+        sizes: list[int] = []  # what goes out now, for the free-time prediction
+        while queued > threads * floor and in_flight < limit:
             k = min(size, max(floor, math.ceil(queued / limit)), queued)
-            lane = min(free, key=free.__getitem__)
-            out.append((k, lane))
-            free[lane] += k * per
+            sizes.append(k)
             queued -= k
             in_flight += 1
-        if 0 < queued <= len(lanes) * floor and (not self._last_round or in_flight == 0):
-            # the last round (or what a lane too busy for its whole share left of it)
-            shares = [min(size, s) for s in water_fill(list(free.values()), queued, per)]
-            out += [(s, lane) for s, lane in zip(shares, free, strict=True) if s]
+        if 0 < queued <= threads * floor and (not self._last_round or in_flight == 0):
+            # the last round (or, after it, what a thread too busy for its share left)
+            free = self._free_times(threads, now, per, sizes)
+            shares = sorted((min(size, s) for s in water_fill(free, queued, per) if s),
+                            reverse=True)  # the largest to the thread free first
+            sizes += shares
             self._last_round = True
-        return out
+        return sizes
 
-    def _free_s(self, lane: Lane, now: float, per: float) -> float:
-        """When ``lane`` is predicted to be free (s), after its running and queued batches."""
-        q = self._lanes.get(lane)
-        if not q:
-            return now
-        head = q[0]
-        start = head.started_s if head.started_s is not None else now
-        return max(now, start + head.size * per) + sum(b.size for b in list(q)[1:]) * per
+    def _free_times(self, threads: int, now: float, per: float, then: list[int]) -> list[float]:
+        """Predicted free time (s) of each thread after what is running, queued and ``then``."""
+        free = [max(now, start + size * per) for start, size in self._running.values()]
+        free += [now] * max(0, threads - len(free))
+        heapq.heapify(free)
+        for size in [s for _, s in self._waiting] + then:
+            heapq.heappush(free, heapq.heappop(free) + size * per)
+        return sorted(free)[:threads]

@@ -38,7 +38,7 @@ from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Literal, get_args
 
-from studies.batching import BatchPlanner, Lane
+from studies.batching import BatchPlanner
 from studies.interrupts import SafeInterrupts
 from studies.lease import Lease
 from studies.points import Point, Record
@@ -245,7 +245,9 @@ def _local_cluster_config() -> dict[str, Any]:
     environ["MALLOC_MMAP_THRESHOLD_"] = 32 * 2**20
     return {
         # one task per worker thread at a time: a worker that dies was running exactly the
-        # batch it is blamed for (dask counts every task on a dead worker as suspicious)
+        # batch it is blamed for (dask counts every task on a dead worker as suspicious).
+        # dask holds tasks back at the scheduler only in groups of more than twice the
+        # threads; the few batches of a short run are placed on workers as submitted.
         "distributed.scheduler.worker-saturation": 1.0,
         "distributed.nanny.pre-spawn-environ": environ,
         # No dashboard (nobody is told its address) and no statistical profiler in the
@@ -336,20 +338,16 @@ class WorkerThreads:
     def __init__(self, client: Any, max_age_s: float = 1.0) -> None:
         self.client = client
         self.max_age_s = max_age_s
-        self._workers: dict[str, int] = {}
+        self._n = 0
         self._at = -math.inf
 
     def __call__(self) -> int:
         """Worker threads now (as of at most ``max_age_s`` ago)."""
-        return sum(self.workers().values())
-
-    def workers(self) -> dict[str, int]:
-        """``{worker address: threads}`` now (as of at most ``max_age_s`` ago)."""
         now = time.monotonic()
         if now - self._at > self.max_age_s:
-            self._workers = dict(self.client.nthreads())
+            self._n = sum(self.client.nthreads().values())
             self._at = now
-        return self._workers
+        return self._n
 
 
 class ClusterError(ConfigError):
@@ -427,30 +425,27 @@ def run_points(
 
     threads = WorkerThreads(client)
 
-    def send(batch: list[Point], lane: Lane | None, now: float) -> None:
+    def slots() -> int:
+        n = threads()
+        stats.workers = max(stats.workers, n)
+        return max(1, n)
+
+    def send(batch: list[Point], n: int, now: float) -> None:
         key = f"filamant-{tag}-{len(stats.batch_sizes)}-{batch[0].point_id}"
-        # to the planned worker, but any other may take it if that one dies
-        where = {"workers": [lane[0]], "allow_other_workers": True} if lane else {}
         fut = client.submit(task, study_json, [(p.point_id, p.params) for p in batch],
-                            pure=False, key=key, **where)
+                            pure=False, key=key)
         stats.batch_sizes.append(len(batch))
         inflight[fut] = batch
-        if lane:
-            planner.submitted(key, len(batch), lane, now)
+        planner.submitted(key, len(batch), now, n)
         ac.add(fut)
 
     def submit() -> None:
-        now = time.perf_counter()
-        lanes = BatchPlanner.lanes_of(threads.workers())
-        stats.workers = max(stats.workers, len(lanes))
-        if not lanes:  # no worker yet (a batch-job cluster): one batch, for the first to come
-            if not inflight and (retry or queue):
-                send([(retry or queue).popleft()], None, now)
-            return
-        while retry and len(inflight) < len(lanes) * in_flight_per_worker:
-            send([retry.popleft()], None, now)
-        for k, lane in planner.next_batches(len(queue), lanes, now):
-            send([queue.popleft() for _ in range(k)], lane, now)
+        n, now = slots(), time.perf_counter()
+        while retry and len(inflight) < n * in_flight_per_worker:
+            send([retry.popleft()], n, now)
+        if queue:
+            for k in planner.next_sizes(len(queue), n, now):
+                send([queue.popleft() for _ in range(k)], n, now)
 
     def handle(fut: Any, batch: list[Point]) -> None:
         status = fut.status

@@ -37,23 +37,23 @@ def test_water_fill_equal_lanes_split_evenly():
 
 
 def _simulate(planner: BatchPlanner, lanes: int, points: int, per_s: float, latency_s: float):
-    """Lanes run their batches in order; the client hears of each end ``latency_s`` later."""
-    lane_ids = [(f"tcp://w{i}", 0) for i in range(lanes)]
-    busy = dict.fromkeys(lane_ids, 0.0)
-    last_end = dict.fromkeys(lane_ids, 0.0)
-    events: list[tuple[float, int, int, tuple[str, int]]] = []
+    """Worker threads take batches from one queue in order, each as it frees (list scheduling);
+    the client hears of each batch's end ``latency_s`` after it."""
+    free = [0.0] * lanes  # when each thread is next free (a heap)
+    last_end = [0.0] * lanes
+    events: list[tuple[float, int, int, int]] = []
     keys = itertools.count()
     sizes: list[int] = []
     left = points
 
     def dispatch(now: float) -> None:
         nonlocal left
-        for size, lane in planner.next_batches(left, lane_ids, now):
+        for size in planner.next_sizes(left, lanes, now):
             key = next(keys)
-            planner.submitted(key, size, lane, now)
-            start = max(now, busy[lane])
-            busy[lane] = start + size * per_s
-            heapq.heappush(events, (busy[lane] + latency_s, key, size, lane))
+            planner.submitted(key, size, now, lanes)
+            t_free, lane = min((t, i) for i, t in enumerate(free))
+            free[lane] = max(now, t_free) + size * per_s
+            heapq.heappush(events, (free[lane] + latency_s, key, size, lane))
             sizes.append(size)
             left -= size
 
@@ -74,9 +74,9 @@ def test_plan_covers_every_point_once_and_lanes_finish_together(lanes, per_lane)
     sizes, ends, left = _simulate(planner, lanes, points, per, latency)
     assert left == 0 and sum(sizes) == points and min(sizes) >= 1
     # equal finish: the spread is one point plus the client's late hearing of a start
-    assert max(ends.values()) - min(ends.values()) <= per + 2 * latency + 1e-9
+    assert max(ends) - min(ends) <= per + 2 * latency + 1e-9
     # the makespan: the ideal share per lane, one probe's latency, and that spread
-    assert max(ends.values()) <= points * per / lanes + per + 3 * latency + 1e-9
+    assert max(ends) <= points * per / lanes + per + 3 * latency + 1e-9
     # few batches: in a short run the probes, a few factoring parts and one last round; in a
     # long one, at the ~10 ms of client CPU a batch costs (measured), under 5 % of the work
     if per_lane <= 64:
@@ -87,12 +87,12 @@ def test_plan_covers_every_point_once_and_lanes_finish_together(lanes, per_lane)
 
 def test_probe_batches_until_a_time_is_known():
     planner = BatchPlanner(probe=4)
-    lanes = BatchPlanner.lanes_of({"tcp://a": 1, "tcp://b": 2})
-    first = planner.next_batches(100, lanes, 0.0)
-    assert [s for s, _ in first] == [4, 4, 4] and {ln for _, ln in first} == set(lanes)
-    for i, (s, lane) in enumerate(first):
-        planner.submitted(i, s, lane, 0.0)
-    assert planner.next_batches(88, lanes, 0.0) == []  # nothing more before a timing
+    first = planner.next_sizes(100, 3, 0.0)
+    assert first == [4, 4, 4]
+    for i, k in enumerate(first):
+        planner.submitted(i, k, 0.0, 3)
+    assert planner.next_sizes(88, 3, 0.0) == []  # nothing more before a timing
+    assert BatchPlanner(probe=4).next_sizes(5, 3, 0.0) == [2, 2, 1]
 
 
 def test_factoring_sizes_stay_within_bounds():
@@ -108,9 +108,8 @@ def test_factoring_sizes_stay_within_bounds():
 def test_unknown_and_repeated_reports_are_harmless():
     planner = BatchPlanner()
     planner.finished("never-sent", 1.0, [0.01])
-    lane = ("tcp://a", 0)
-    planner.submitted("k", 3, lane, 0.0)
+    planner.submitted("k", 3, 0.0, 1)
     planner.finished("k", 0.1, [0.01] * 3)
     planner.finished("k", 0.2, [])
     assert planner.per_point_s == pytest.approx(0.01)
-    assert planner.next_batches(5, [lane], 0.3) == [(5, lane)]
+    assert planner.next_sizes(5, 1, 0.3) == [5]  # nothing in flight: never an empty answer
