@@ -439,7 +439,11 @@ def run_points(
         planner.submitted(key, len(batch), now, n)
         ac.add(fut)
 
+    stopping = False  # set once interrupted: the clean-up stores, it submits nothing
+
     def submit() -> None:
+        if stopping:
+            return
         n, now = slots(), time.perf_counter()
         while retry and len(inflight) < n * in_flight_per_worker:
             send([retry.popleft()], n, now)
@@ -491,6 +495,7 @@ def run_points(
             _drive(interrupts, ac, inflight, handle, submit, lease, store, study)
         except KeyboardInterrupt:
             stats.interrupted = True
+            stopping = True
             logger.warning("interrupted: storing finished batches, cancelling the rest")
             for fut, batch in list(inflight.items()):
                 if fut.status == "finished":
