@@ -66,7 +66,16 @@ def test_interrupt_while_waiting_raises_at_once():
             pytest.fail("the wait was not interrupted")
 
 
-def test_ctrl_c_inside_a_store_write_comes_after_the_commit(tmp_path):
+@pytest.fixture
+def terminal_sigint():
+    """Python's own Ctrl-C handler for the test, as in a terminal: a shell that starts the
+    tests in the background passes SIGINT down ignored."""
+    old = signal.signal(signal.SIGINT, signal.default_int_handler)
+    yield
+    signal.signal(signal.SIGINT, old)
+
+
+def test_ctrl_c_inside_a_store_write_comes_after_the_commit(tmp_path, terminal_sigint):
     """The CI failure this guards against: an interrupt inside an SQLite write left the pooled
     connection holding the lock, and the lease release then waited out the busy timeout."""
     import socket

@@ -110,7 +110,10 @@ def test_jobqueue_import_keeps_the_ctrl_c_handler():
     import subprocess
     import sys
 
+    # Python's own Ctrl-C handler first: a shell that starts the tests in the background
+    # passes SIGINT down ignored, and the child would inherit that
     code = ("import signal\n"
+            "signal.signal(signal.SIGINT, signal.default_int_handler)\n"
             "from studies.runner import make_jobqueue_cluster\n"
             "c, _ = make_jobqueue_cluster({'system': 'slurm', 'cores': 1, 'memory': '1GB'})\n"
             "c.close()\n"
