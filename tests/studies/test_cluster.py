@@ -84,13 +84,18 @@ def test_worker_killed_mid_run_nothing_lost(tmp_path, cluster):
     try:
         db = tmp_path / "drawer.db"
         t0 = time.time()
-        done = 0
-        while done < 20 and time.time() - t0 < 120:
+        done, seen = 0, 0
+        # kill once both workers have stored results: a run of a few large batches can otherwise
+        # reach 20 points on one worker while the other's first batch still runs
+        while (done < 20 or seen < 2) and time.time() - t0 < 120:
             assert run.poll() is None, (tmp_path / "run.err").read_text()
             if db.exists():
                 try:
                     with Store(f"sqlite:///{db}", create=False) as store:
                         done = store.counts("drawer")["done"]
+                        with store.read() as conn:
+                            seen = len(conn.exec_driver_sql(
+                                "SELECT DISTINCT worker FROM filamant_results").all())
                 except Exception:  # noqa: BLE001 - tables not there yet
                     pass
             time.sleep(0.05)
