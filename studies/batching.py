@@ -138,19 +138,18 @@ class BatchPlanner:
         """
         threads = max(1, threads)
         in_flight = len(self._running) + len(self._waiting)
-        out: list[int] = []
+        sizes: list[int] = []  # what goes out now
         per = self.per_point_s
         if per is None:
             share = min(self.probe, max(1, math.ceil(queued / threads)))
             while in_flight < threads and queued > 0:
-                out.append(min(share, queued))
-                queued -= out[-1]
+                sizes.append(min(share, queued))
+                queued -= sizes[-1]
                 in_flight += 1
-            return out
+            return sizes
         size = max(1, min(self.max_batch, round(self.target_batch_s / per)))
         floor = max(1, min(size, round(self.min_batch_s / per)))
         limit = threads * self.in_flight_per_worker
-        sizes: list[int] = []  # what goes out now, for the free-time prediction
         while queued > threads * floor and in_flight < limit:
             k = min(size, max(floor, math.ceil(queued / limit)), queued)
             sizes.append(k)

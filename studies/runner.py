@@ -481,6 +481,7 @@ def run_points(
             stats.failed += len(gone)
             bar.update(len(gone))
             retry.extend(p for p in batch if p.point_id not in gone)
+            submit()
             return
         raise ClusterError(f"cluster: a batch failed outside the solver: "
                            f"{type(exc).__name__}: {exc} (is filamant installed, at this "
@@ -517,7 +518,8 @@ def run_points(
 def _drive(interrupts: SafeInterrupts, ac: Any, inflight: dict[Any, list[Point]],
            handle: Callable[[Any, list[Point]], None], submit: Callable[[], None],
            lease: Lease, store: Store, study: str) -> None:
-    """Submit, then handle each batch as it completes; Ctrl-C only while waiting for one."""
+    """Submit, then handle each batch as it completes (handling it submits the next ones);
+    Ctrl-C only while waiting for one."""
     submit()
     while inflight:
         with interrupts.waiting():
@@ -526,7 +528,6 @@ def _drive(interrupts: SafeInterrupts, ac: Any, inflight: dict[Any, list[Point]]
         if lease.lost.is_set():
             raise StoreError(f"{store.display_url}: study {study!r}: the run lease was taken "
                              "over by another client; stopping")
-        submit()
         # released only now that the next batches are out: the client sends the scheduler
         # its messages at most every 10 ms, so a release sent just before a submission could
         # hold that submission (and the freed worker) back that long

@@ -155,12 +155,30 @@ def radiation_vector(
 ) -> NDArray[np.complex128]:
     """``A(r_hat) = sum I t dl e^{jk r_hat . r}``: shape (D, K, 3) (A m) for directions (D, 3)."""
     pos, elem = points.elements(np.asarray(currents))
-    arg = k * (r_hat @ pos.T)  # (D, P)
-    phase = np.empty(arg.shape, dtype=complex)  # e^{j arg} from real cosines and sines
+    return _sum_phased(_phases(k, r_hat, pos), elem)
+
+
+def _phases(k: float, r_hat: NDArray[np.float64], pos: NDArray[np.float64]
+            ) -> NDArray[np.complex128]:
+    """``e^{jk r_hat . r}`` (D, P) from real cosines and sines."""
+    arg = k * (r_hat @ pos.T)
+    phase = np.empty(arg.shape, dtype=complex)
     phase.real = np.cos(arg)
     phase.imag = np.sin(arg)
-    n_k = elem.shape[1]
-    return (phase @ elem.reshape(len(pos), -1)).reshape(len(r_hat), n_k, 3)
+    return phase
+
+
+def _sum_phased(phase: NDArray[np.complex128], elem: NDArray[np.complex128]
+                ) -> NDArray[np.complex128]:
+    """``sum_P phase I t dl``: (D, K, 3) from the phases (D, P) and the elements (P, K, 3)."""
+    return (phase @ elem.reshape(len(elem), -1)).reshape(len(phase), elem.shape[1], 3)
+
+
+def _intensity(a: NDArray[np.complex128], r_hat: NDArray[np.float64], k: float
+               ) -> NDArray[np.float64]:
+    """Radiation intensity (W/sr), (D, K), from the radiation vector ``a`` toward ``r_hat``."""
+    return ETA0 * k**2 / (32.0 * np.pi**2) * np.add.reduce(np.abs(_perp(a, r_hat)) ** 2,
+                                                           axis=-1)
 
 
 def _perp(a: NDArray[np.complex128], r_hat: NDArray[np.float64]) -> NDArray[np.complex128]:
@@ -174,8 +192,7 @@ def radiation_intensity(
     r_hat: NDArray[np.float64],
 ) -> NDArray[np.float64]:
     """Radiation intensity ``U`` in W/sr for peak currents: shape (D, K)."""
-    a = _perp(radiation_vector(points, currents, k, r_hat), r_hat)
-    return ETA0 * k**2 / (32.0 * np.pi**2) * np.add.reduce(np.abs(a) ** 2, axis=-1)
+    return _intensity(radiation_vector(points, currents, k, r_hat), r_hat, k)
 
 
 def radiation_intensity_turned(
@@ -192,20 +209,11 @@ def radiation_intensity_turned(
     and sines. Returns ``U`` (D, K) at ``r_hat`` and at the turned directions.
     """
     pos, elem = points.elements(np.asarray(currents))
-    arg = k * (r_hat @ pos.T)  # (D, P)
-    phase = np.empty(arg.shape, dtype=complex)
-    phase.real = np.cos(arg)
-    phase.imag = np.sin(arg)
-    n_k = elem.shape[1]
-    flat = elem.reshape(len(pos), -1)
-    a = (phase @ flat).reshape(len(r_hat), n_k, 3)
+    phase = _phases(k, r_hat, pos)
+    u = _intensity(_sum_phased(phase, elem), r_hat, k)
     np.conjugate(phase, out=phase)
-    a_turned = (phase @ flat).reshape(len(r_hat), n_k, 3)
-    scale = ETA0 * k**2 / (32.0 * np.pi**2)
-    u = scale * np.add.reduce(np.abs(_perp(a, r_hat)) ** 2, axis=-1)
     turned = r_hat * np.array([-1.0, -1.0, 1.0])
-    u_turned = scale * np.add.reduce(np.abs(_perp(a_turned, turned)) ** 2, axis=-1)
-    return u, u_turned
+    return u, _intensity(_sum_phased(phase, elem), turned, k)
 
 
 def radiated_power(

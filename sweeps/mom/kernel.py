@@ -504,7 +504,7 @@ class DynamicPoints:
             d2 = d2 + dc * dc
         extra2 = fac * 0.5 * (radius[p] ** 2 + radius[q] ** 2)
         self.r = np.sqrt(d2 + extra2[:, None, None]).reshape(len(p), -1)  # (K, Q^2)
-        self.inv4pir = INV4PI / self.r
+        self._set_distances([self.r])
         # weights of the point pairs (u, v) for the four shape pairs (i, j) and for the charge
         # (sum over the shapes: w_u w_v): (Q^2, 5), times L_p L_q of each group
         self.weights = _point_pair_weights(self.q)
@@ -513,13 +513,16 @@ class DynamicPoints:
         self.w = w
         self.pts = pts.reshape(-1, 3)
 
+    def _set_distances(self, parts: list[NDArray[np.float64]]) -> None:
+        """Every distance the dynamic kernel runs over, flattened into one array (the pair
+        groups, then the end caps), with its ``1 / (4 pi r)``."""
+        self._r_all = np.concatenate([d.reshape(-1) for d in parts])
+        self._inv4pir_all = INV4PI / self._r_all
+
     @property
     def points_in_flight(self) -> int:
         """Point pairs evaluated per frequency (for memory chunking)."""
-        n = self.r.size
-        if hasattr(self, "cap_r"):
-            n += self.cap_r.size + self.cap_cap_r.size
-        return n
+        return self._r_all.size
 
     def set_caps(self, cap_pos: NDArray[np.float64], cap_radius: NDArray[np.float64]) -> None:
         """Prepare cap-to-segment and cap-to-cap distances (see :func:`cap_static_integrals`)."""
@@ -529,6 +532,7 @@ class DynamicPoints:
         dc = rownorm(cap_pos[:, None, :] - cap_pos[None, :, :])
         self.cap_cap_r = np.sqrt(dc**2 + rho2[:, None] + rho2[None, :])
         self.cap_weights = (self.w[None, :] * self.length[:, None]).reshape(-1)  # (SQ,)
+        self._set_distances([self.r, self.cap_r, self.cap_cap_r])
 
     def columns(self, k: NDArray[np.float64]
                 ) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
@@ -541,12 +545,6 @@ class DynamicPoints:
         kernel runs once over all point pairs.
         """
         k = np.atleast_1d(np.asarray(k, dtype=float))
-        if not hasattr(self, "_r_all"):
-            r = [self.r.reshape(-1)]
-            if hasattr(self, "cap_r"):
-                r += [self.cap_r.reshape(-1), self.cap_cap_r.reshape(-1)]
-            self._r_all = np.concatenate(r)
-            self._inv4pir_all = INV4PI / self._r_all
         re, im = _dynamic_kernel(k, self._r_all, self._inv4pir_all)  # (F, P) each
         n_f = len(k)
         n_k, q2 = self.r.shape
