@@ -93,7 +93,14 @@ from studies.interrupts import SafeInterrupts
 from studies.lease import Lease
 from studies.pareto import Goals, pareto_front
 from studies.points import Point, Record, canonical_value
-from studies.runner import ClusterError, Task, WorkerThreads, evaluate_batch, open_client
+from studies.runner import (
+    ClusterError,
+    Task,
+    WorkerThreads,
+    evaluate_batch,
+    open_client,
+    submit_queued,
+)
 from studies.space import Space
 from studies.store import METRIC_COLUMNS, Store, display_url
 from sweeps.errors import ConfigError, FilamantError, StoreError
@@ -420,8 +427,8 @@ class _Optimizer:
     def submit(self, job: _Job) -> None:
         p = job.point
         key = f"filamant-opt-{self.tag}-{p.point_id}-{next(self.keys)}"
-        job.future = self.client.submit(self.task, self.ctx.canonical_json,
-                                        [(p.point_id, p.params)], pure=False, key=key)
+        job.future = submit_queued(self.client, key, self.task, self.ctx.canonical_json,
+                                   [(p.point_id, p.params)])
         self.by_future[job.future] = p.point_id
         self.ac.add(job.future)
 
