@@ -371,7 +371,8 @@ def submit_queued(client: Any, key: str, fn: Callable[..., Any], *args: Any) -> 
     time, so plain ``client.submit`` tasks are placed on a worker at once, by the scheduler's
     estimate of how busy each is, which knows nothing of batch sizes: two large batches of a
     short run could both go to one worker while the other stood idle (seen in 2 of 4
-    64-design runs on two workers, the run taking 1.7 times as long). Marked, they wait in
+    64-design runs on two workers with a trial planner that sent its last two batches
+    together, the run taking 1.7 times as long). Marked, they wait in
     the queue and are taken first in, first out (one generation per call, ``fifo_timeout``
     0), which is what :class:`studies.batching.BatchPlanner` plans for. Returns the Future.
     """
