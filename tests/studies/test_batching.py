@@ -86,13 +86,33 @@ def test_plan_covers_every_point_once_and_lanes_finish_together(lanes, per_lane)
 
 
 def test_probe_batches_until_a_time_is_known():
-    planner = BatchPlanner(probe=4)
+    planner = BatchPlanner(probe=4, follow_up=12)
     first = planner.next_sizes(100, 3, 0.0)
-    assert first == [4, 4, 4]
+    assert first == [4, 4, 4, 12, 12, 12]  # a probe per thread, then a follow-up per thread
     for i, k in enumerate(first):
         planner.submitted(i, k, 0.0, 3)
-    assert planner.next_sizes(88, 3, 0.0) == []  # nothing more before a timing
+    assert planner.next_sizes(52, 3, 0.0) == []  # nothing more before a timing
+    assert planner.next_sizes(52, 8, 0.0) == [4, 4]  # but a probe for each thread that joins
+    # too few points for follow-ups: probes only, sharing them out
     assert BatchPlanner(probe=4).next_sizes(5, 3, 0.0) == [2, 2, 1]
+    assert BatchPlanner(probe=4, follow_up=12).next_sizes(10, 2, 0.0) == [4, 4, 1, 1]
+    assert BatchPlanner(probe=4, follow_up=0).next_sizes(100, 2, 0.0) == [4, 4]
+    assert BatchPlanner(probe=4, follow_up=12, max_batch=8).next_sizes(100, 2, 0.0) == [
+        4, 4, 8, 8]
+
+
+def test_follow_ups_keep_the_threads_busy_through_the_first_plan():
+    # in the model, a thread is idle between batches only while the queue is empty; with a
+    # follow-up behind each probe it is not empty while the client hears of the probe
+    per, latency, lanes, points = 0.005, 0.012, 2, 128
+    spans = {}
+    for follow in (0, 12):
+        planner = BatchPlanner(target_batch_s=1.0, min_batch_s=0.1, follow_up=follow)
+        sizes, ends, left = _simulate(planner, lanes, points, per, latency)
+        assert left == 0 and sum(sizes) == points
+        spans[follow] = max(ends)
+    # without follow-ups each thread waits one latency for its second batch
+    assert spans[0] - spans[12] >= latency - per - 1e-9
 
 
 def test_factoring_sizes_stay_within_bounds():

@@ -15,6 +15,7 @@ from studies.lease import Lease
 from studies.runner import (
     ClusterError,
     ClusterSettings,
+    gc_frozen,
     make_jobqueue_cluster,
     open_client,
     run_points,
@@ -193,3 +194,31 @@ def test_example_study_run_status_export(tmp_path, capsys):
     assert main(["export", str(cfg), "--table", str(tmp_path / "d.parquet"),
                  "--touchstone", str(tmp_path / "ts")]) == 0
     assert len(list((tmp_path / "ts").glob("*.s1p"))) == st["done"]
+
+
+def test_gc_frozen_skips_older_objects_and_hands_them_back():
+    """Python's gc.freeze semantics (library reference, gc module): a cycle made before the
+    block survives full collections inside it, one made inside does not, and the older one
+    is collected after the block."""
+    import gc
+    import weakref
+
+    class Node:
+        pass
+
+    def cycle() -> weakref.ref:
+        a, b = Node(), Node()
+        a.other, b.other = b, a
+        return weakref.ref(a)
+
+    if gc.get_freeze_count():
+        pytest.skip("objects were frozen before this test")
+    old = cycle()
+    with gc_frozen():
+        assert gc.get_freeze_count() > 0
+        new = cycle()
+        gc.collect()
+        assert old() is not None and new() is None
+    assert gc.get_freeze_count() == 0
+    gc.collect()
+    assert old() is None
