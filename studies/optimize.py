@@ -99,7 +99,7 @@ from studies.runner import (
     WorkerThreads,
     evaluate_batch,
     open_client,
-    submit_queued,
+    submit_queued_many,
 )
 from studies.space import Space
 from studies.store import METRIC_COLUMNS, Store, display_url
@@ -386,7 +386,16 @@ class _Optimizer:
         return sum(len(j.trials) for j in self.jobs.values())
 
     def fill(self) -> None:
-        """Ask trials until every worker is busy or enough trials are under way."""
+        """Ask trials until every worker is busy or enough trials are under way.
+
+        The new evaluations go to the cluster together, in one message (see
+        :func:`studies.runner.submit_queued_many`).
+        """
+        fresh: list[_Job] = []
+        self._ask_until_busy(fresh)  # if interrupted, interrupted() requeues what it asked
+        self.submit(*fresh)
+
+    def _ask_until_busy(self, fresh: list[_Job]) -> None:
         while self.stop_reason is None:
             self.interrupts.check()
             if self.complete >= self.target:
@@ -400,9 +409,12 @@ class _Optimizer:
             if self.complete + self.in_flight() >= self.target or \
                     len(self.jobs) >= self.slots():
                 return
-            self.ask_one()
+            job = self.ask_one()
+            if job is not None:
+                fresh.append(job)
 
-    def ask_one(self) -> None:
+    def ask_one(self) -> _Job | None:
+        """Ask one trial; the new evaluation it needs (to submit), if any."""
         trial = self.study.ask(self.dists)
         self.asked += 1
         params = _params_of(self.ctx.space, trial.params)
@@ -422,15 +434,18 @@ class _Optimizer:
                 self.store.write_batch(self.ctx.name, [], owner=self.lease.owner,
                                        new_points=[point])
             self.jobs[pid] = _Job(point, [trial])
-            self.submit(self.jobs[pid])
+            return self.jobs[pid]
+        return None
 
-    def submit(self, job: _Job) -> None:
-        p = job.point
-        key = f"filamant-opt-{self.tag}-{p.point_id}-{next(self.keys)}"
-        job.future = submit_queued(self.client, key, self.task, self.ctx.canonical_json,
-                                   [(p.point_id, p.params)])
-        self.by_future[job.future] = p.point_id
-        self.ac.add(job.future)
+    def submit(self, *jobs: _Job) -> None:
+        keys = [f"filamant-opt-{self.tag}-{j.point.point_id}-{next(self.keys)}" for j in jobs]
+        futures = submit_queued_many(self.client, [
+            (key, self.task, (self.ctx.canonical_json, [(j.point.point_id, j.point.params)]))
+            for key, j in zip(keys, jobs, strict=True)])
+        for job, fut in zip(jobs, futures, strict=True):
+            job.future = fut
+            self.by_future[fut] = job.point.point_id
+            self.ac.add(fut)
 
     # telling
 
@@ -457,15 +472,19 @@ class _Optimizer:
             self.unsuccessful += 1
             logger.info("trial %d %s: %s", trial.number, out.state, out.reason)
 
-    def handle(self, fut: Any) -> None:
-        """Store a finished evaluation and tell its trials; retry a lost one."""
+    def handle(self, fut: Any, result: Any = None) -> None:
+        """Store a finished evaluation and tell its trials; retry a lost one.
+
+        ``result`` is the finished future's result when already gathered (by the
+        ``as_completed`` iterator, on the client's event loop), else it is gathered here.
+        """
         from distributed.scheduler import KilledWorker
 
         pid = self.by_future.pop(fut)
         job = self.jobs.pop(pid)
         status = fut.status
         if status == "finished":
-            records: list[Record] = fut.result()
+            records: list[Record] = fut.result() if result is None else result
             if [r.point_id for r in records] != [pid]:
                 raise ClusterError(f"cluster: an evaluation returned results for other points "
                                    f"({[r.point_id for r in records][:3]}); refusing to store")
@@ -500,8 +519,8 @@ class _Optimizer:
         self.fill()
         while self.jobs:
             with self.interrupts.waiting():
-                fut = next(self.ac)
-            self.handle(fut)
+                fut, result = next(self.ac)
+            self.handle(fut, result)
             if self.lease.lost.is_set():
                 raise StoreError(f"{self.store.display_url}: study {self.ctx.name!r}: the run "
                                  "lease was taken over by another client; stopping")
@@ -649,7 +668,9 @@ def _drive(opt: _Optimizer, progress: bool | None, described: str) -> bool:
         logger.info("study %r: %d of %d trial(s) to complete with %s on %s", ctx.name,
                     opt.target - opt.complete, opt.target, described, ctx.cluster.describe())
         with open_client(ctx.cluster) as client:
-            opt.client, opt.ac = client, as_completed(loop=client.loop)  # see run_points
+            # see run_points: this client's loop; each result gathered there as it finishes
+            opt.client = client
+            opt.ac = as_completed(loop=client.loop, with_results=True, raise_errors=False)
             opt.threads = WorkerThreads(client)
             try:
                 opt.loop()
