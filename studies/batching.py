@@ -7,10 +7,14 @@ the last worker finishes, so the batches near the end must leave every worker th
 about the same time. :class:`BatchPlanner` does both:
 
 1. **Probe.** Until a point's time is known, one batch of at most ``probe`` points per worker
-   thread (an unknown design may take long), and behind each a follow-up of at most
-   ``follow_up`` points, which the thread runs while the client hears of its probe and plans
-   from its times: without it every thread stood idle for that round trip (10-20 ms per
-   thread on two local workers, measured with ``filamant bench``).
+   thread (an unknown design may take long), and behind each a follow-up: the rest of the
+   thread's fair share, at most ``follow_up`` points. The thread runs it while the client
+   hears of its probe and plans from its times (without it every thread stood idle for that
+   round trip, 10-20 ms per thread on two local workers, measured with ``filamant bench``),
+   and a short study needs no more batches (each costs the client and the workers several ms
+   of CPU). The worker bounds its time: it starts no point after ``max_batch_s`` and hands
+   back the rest (:func:`studies.runner.evaluate_batch`), which the runner queues again
+   (:meth:`BatchPlanner.requeued`).
 2. **Factoring.** Then each new batch takes ``1/(threads * in_flight)`` of the points left, at
    most ``target_batch_s`` of work and at least ``min_batch_s``, so the batches shrink as the
    queue empties (Hummel, Schonberg & Flynn, "Factoring: a method for scheduling parallel
@@ -97,8 +101,8 @@ class BatchPlanner:
     probe : int
         Points in each of the first batches, before any point's time is known.
     follow_up : int
-        Points in the batch queued behind each probe before any point's time is known
-        (0: none, and the threads wait for the plan).
+        Most points in the batch queued behind each probe before any point's time is known
+        (0: none, and the threads wait for the plan); never more than ``max_batch``.
     """
 
     target_batch_s: float = 1.0
@@ -106,7 +110,7 @@ class BatchPlanner:
     max_batch: int = 64
     in_flight_per_worker: int = 2
     probe: int = 4
-    follow_up: int = 12
+    follow_up: int = 64
     times: deque[float] = field(default_factory=lambda: deque(maxlen=256))
     _running: dict[Hashable, tuple[float, int]] = field(default_factory=dict)
     _waiting: deque[tuple[Hashable, int]] = field(default_factory=deque)
@@ -130,6 +134,11 @@ class BatchPlanner:
             k, size = self._waiting.popleft()
             self._running[k] = (now, size)
 
+    def requeued(self) -> None:
+        """Points of a batch came back unevaluated (cut short) and are queued again: they are
+        shared out afresh, even after the last round."""
+        self._last_round = False
+
     # -- what it asks ---------------------------------------------------------------------
 
     @property
@@ -148,16 +157,17 @@ class BatchPlanner:
         sizes: list[int] = []  # what goes out now
         per = self.per_point_s
         if per is None:
-            share = max(1, math.ceil(queued / threads))
-            probe = min(self.probe, share, self.max_batch)
-            # the probes first in the queue, one per thread, then (at the start) the follow-ups;
-            # threads that join before a time is known get a probe each
-            follow = min(self.follow_up, share - probe, self.max_batch) if in_flight == 0 else 0
-            plan = [probe] * (threads - in_flight) + [follow] * threads * (follow > 0)
-            for k in plan:
+            probe = min(self.probe, math.ceil(queued / threads), self.max_batch)
+            # the probes first in the queue, one per thread (threads that join before a time
+            # is known get one each), then at the start the follow-ups, split evenly
+            for _ in range(threads - in_flight):
                 if queued > 0:
-                    sizes.append(min(k, queued))
+                    sizes.append(min(probe, queued))
                     queued -= sizes[-1]
+            if in_flight == 0:
+                cap = min(self.follow_up, self.max_batch)
+                base, extra = divmod(min(queued, threads * cap), threads)
+                sizes += [base + (i < extra) for i in range(threads) if base + (i < extra)]
             return sizes
         size = max(1, min(self.max_batch, round(self.target_batch_s / per)))
         floor = max(1, min(size, round(self.min_batch_s / per)))

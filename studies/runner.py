@@ -59,8 +59,10 @@ _JOBQUEUE_CLASSES: dict[str, str] = {
 }
 assert set(_JOBQUEUE_CLASSES) == set(get_args(JobSystem))
 
-#: A worker task: ``(study_json, [(point_id, params)]) -> [Record]``.
-Task = Callable[[str, list[tuple[str, dict[str, Any]]]], list[Record]]
+#: A worker task: ``(study_json, [(point_id, params)], max_s) -> [Record]``, one record per
+#: point it evaluated, in order: all of them, or (:func:`run_points` passes ``max_s``, in s)
+#: the first ones, none started after ``max_s`` had passed (see :func:`evaluate_batch`).
+Task = Callable[..., list[Record]]
 
 
 def default_workers() -> int:
@@ -280,25 +282,34 @@ def _evaluator(study_json: str) -> Callable[[dict[str, Any]], Record]:
     return point_evaluator(study_json)
 
 
-def evaluate_batch(study_json: str, items: list[tuple[str, dict[str, Any]]]) -> list[Record]:
-    """Evaluate points of a study (runs on a worker; never touches the store).
+def evaluate_batch(study_json: str, items: list[tuple[str, dict[str, Any]]],
+                   max_s: float = math.inf) -> list[Record]:
+    """Evaluate points of a study in order (runs on a worker; never touches the store).
 
     Parameters
     ----------
     study_json : str
         The study's canonical config as JSON (``Study.canonical()``).
     items : list of (point_id, params)
+    max_s : float
+        Start no point once this many seconds have passed since the first started (the first
+        always runs): the client sizes batches before it knows how long a design takes, and
+        returns the points left over to its queue.
 
     Returns
     -------
     list of Record
-        One per item, in order; an evaluation that raises gives ``ok=False`` with the reason.
+        One per evaluated item, in order (all items unless ``max_s`` cut the batch short); an
+        evaluation that raises gives ``ok=False`` with the reason.
     """
     worker = f"{socket.gethostname()}:{os.getpid()}"
     evaluate = _evaluator(study_json)
-    out = []
+    out: list[Record] = []
+    start = time.perf_counter()
     for pid, params in items:
         t0 = time.perf_counter()
+        if out and t0 - start >= max_s:
+            break
         try:
             rec = evaluate(params)
             rec.point_id = pid
@@ -321,6 +332,7 @@ class RunStats:
     failed: int = 0
     batches: int = 0
     lost_batches: int = 0
+    requeued: int = 0  # points handed back unevaluated by batches cut short at max_batch_s
     interrupted: bool = False
     elapsed_s: float = 0.0
     seconds_per_point: float | None = None
@@ -451,6 +463,7 @@ def run_points(
     min_batch_s: float = 0.1,
     max_batch: int = 64,
     in_flight_per_worker: int = 2,
+    max_batch_s: float | None = None,
 ) -> RunStats:
     """Evaluate ``todo`` on ``client``'s cluster, storing every finished batch.
 
@@ -482,6 +495,10 @@ def run_points(
         Largest batch.
     in_flight_per_worker : int
         Batches kept submitted (running or queued) per worker thread.
+    max_batch_s : float, optional
+        A worker starts no point of a batch after this many seconds (default twice
+        ``target_batch_s``); the points it leaves go back to the front of the queue. The first
+        batches are sized before any design's time is known, and this bounds them.
 
     Returns
     -------
@@ -498,6 +515,7 @@ def run_points(
     inflight: dict[Any, list[Point]] = {}
     planner = BatchPlanner(target_batch_s=target_batch_s, min_batch_s=min_batch_s,
                            max_batch=max_batch, in_flight_per_worker=in_flight_per_worker)
+    cap_s = 2.0 * target_batch_s if max_batch_s is None else max_batch_s
     # on this client's event loop: the default (the newest client's loop) would wait on these
     # futures from another loop when a process holds two clients, and then hear of each
     # finished batch only at that loop's next timer (measured: 50-200 ms late, a worker idle)
@@ -515,7 +533,7 @@ def run_points(
         keys = [f"filamant-{tag}-{len(stats.batch_sizes) + i}-{b[0].point_id}"
                 for i, b in enumerate(batches)]
         futs = submit_queued_many(client, [
-            (key, task, (study_json, [(p.point_id, p.params) for p in b]))
+            (key, task, (study_json, [(p.point_id, p.params) for p in b], cap_s))
             for key, b in zip(keys, batches, strict=True)])
         for key, fut, batch in zip(keys, futs, batches, strict=True):
             stats.batch_sizes.append(len(batch))
@@ -541,11 +559,16 @@ def run_points(
         if status == "finished":
             records = fut.result() if result is None else result
             got = [r.point_id for r in records]
-            if sorted(got) != sorted(p.point_id for p in batch):
+            # the batch's points in order, all or (cut short at max_batch_s) the first ones
+            if not got or got != [p.point_id for p in batch[:len(got)]]:
                 raise ClusterError(f"cluster: a batch returned results for other points "
                                    f"({got[:3]}...); refusing to store them")
             planner.finished(fut.key, time.perf_counter(),
                              [r.elapsed_s for r in records if r.ok])
+            if len(got) < len(batch):  # the rest back to the front of the queue
+                queue.extendleft(reversed(batch[len(got):]))
+                stats.requeued += len(batch) - len(got)
+                planner.requeued()
             submit()  # the freed worker's next batch goes out before this one is stored
             store.write_batch(study, records, owner=lease.owner)
             stats.batches += 1

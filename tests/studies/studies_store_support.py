@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 import textwrap
 import uuid
@@ -109,12 +110,17 @@ def unique_name(prefix: str = "t") -> str:
 
 # -- worker tasks for runner tests (importable by spawned dask workers) ---------------------
 
-def fake_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
-    """A worker task that sleeps 20 ms per point and returns a made-up record."""
+def fake_task(study_json: str, items: list[tuple[str, dict]],
+              max_s: float = math.inf) -> list[Record]:
+    """A worker task that sleeps 20 ms per point and returns a made-up record; like
+    studies.runner.evaluate_batch it starts no point after ``max_s`` (s) but the first."""
     import time as _time
 
-    out = []
+    out: list[Record] = []
+    start = _time.perf_counter()
     for pid, params in items:
+        if out and _time.perf_counter() - start >= max_s:
+            break
         _time.sleep(0.02)
         seq = int(round(params["antenna.length_mm"] - 100.0))
         rec = fake_record(Point(pid, params, seq))
@@ -123,14 +129,16 @@ def fake_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
     return out
 
 
-def poison_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
+def poison_task(study_json: str, items: list[tuple[str, dict]],
+                max_s: float = math.inf) -> list[Record]:
     """Like :func:`fake_task`, but the worker process dies on a point whose length is 103 mm."""
     for _pid, params in items:
         if params["antenna.length_mm"] == 103.0:
             os._exit(17)
-    return fake_task(study_json, items)
+    return fake_task(study_json, items, max_s)
 
 
-def broken_task(study_json: str, items: list[tuple[str, dict]]) -> list[Record]:
+def broken_task(study_json: str, items: list[tuple[str, dict]],
+                max_s: float = math.inf) -> list[Record]:
     """A task that fails as a whole (as when filamant is missing on a worker)."""
     raise ModuleNotFoundError("No module named 'filamant_missing'")

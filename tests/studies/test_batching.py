@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import heapq
 import itertools
+import math
 
 import pytest
 
@@ -36,34 +37,44 @@ def test_water_fill_equal_lanes_split_evenly():
     assert water_fill([], 5, 0.1) == []
 
 
-def _simulate(planner: BatchPlanner, lanes: int, points: int, per_s: float, latency_s: float):
+def _simulate(planner: BatchPlanner, lanes: int, points: int, per_s: float, latency_s: float,
+              max_s: float = math.inf):
     """Worker threads take batches from one queue in order, each as it frees (list scheduling);
-    the client hears of each batch's end ``latency_s`` after it."""
+    the client hears of each batch's end ``latency_s`` after it. A thread starts no point of a
+    batch after ``max_s`` and hands the rest back, which goes to the front of the queue (as
+    studies.runner does). Returns the submitted sizes, each thread's end, the points never
+    evaluated and the longest batch run."""
     free = [0.0] * lanes  # when each thread is next free (a heap)
     last_end = [0.0] * lanes
-    events: list[tuple[float, int, int, int]] = []
+    events: list[tuple[float, int, int, int, int]] = []
     keys = itertools.count()
     sizes: list[int] = []
     left = points
+    longest = 0.0
 
     def dispatch(now: float) -> None:
-        nonlocal left
+        nonlocal left, longest
         for size in planner.next_sizes(left, lanes, now):
             key = next(keys)
             planner.submitted(key, size, now, lanes)
             t_free, lane = min((t, i) for i, t in enumerate(free))
-            free[lane] = max(now, t_free) + size * per_s
-            heapq.heappush(events, (free[lane] + latency_s, key, size, lane))
+            ran = size if size * per_s <= max_s else max(1, math.ceil(max_s / per_s - 1e-9))
+            free[lane] = max(now, t_free) + ran * per_s
+            longest = max(longest, ran * per_s)
+            heapq.heappush(events, (free[lane] + latency_s, key, ran, size, lane))
             sizes.append(size)
             left -= size
 
     dispatch(0.0)
     while events:
-        heard, key, size, lane = heapq.heappop(events)
+        heard, key, ran, size, lane = heapq.heappop(events)
         last_end[lane] = max(last_end[lane], heard - latency_s)
-        planner.finished(key, heard, [per_s] * size)
+        planner.finished(key, heard, [per_s] * ran)
+        if ran < size:
+            left += size - ran
+            planner.requeued()
         dispatch(heard)
-    return sizes, last_end, left
+    return sizes, last_end, left, longest
 
 
 @pytest.mark.parametrize("lanes", [1, 2, 3, 8])
@@ -71,7 +82,7 @@ def _simulate(planner: BatchPlanner, lanes: int, points: int, per_s: float, late
 def test_plan_covers_every_point_once_and_lanes_finish_together(lanes, per_lane):
     per, latency, points = 0.009, 0.01, round(per_lane * lanes)
     planner = BatchPlanner(target_batch_s=1.0, min_batch_s=0.1)
-    sizes, ends, left = _simulate(planner, lanes, points, per, latency)
+    sizes, ends, left, _ = _simulate(planner, lanes, points, per, latency)
     assert left == 0 and sum(sizes) == points and min(sizes) >= 1
     # equal finish: the spread is one point plus the client's late hearing of a start
     assert max(ends) - min(ends) <= per + 2 * latency + 1e-9
@@ -108,7 +119,7 @@ def test_follow_ups_keep_the_threads_busy_through_the_first_plan():
     spans = {}
     for follow in (0, 12):
         planner = BatchPlanner(target_batch_s=1.0, min_batch_s=0.1, follow_up=follow)
-        sizes, ends, left = _simulate(planner, lanes, points, per, latency)
+        sizes, ends, left, _ = _simulate(planner, lanes, points, per, latency)
         assert left == 0 and sum(sizes) == points
         spans[follow] = max(ends)
     # without follow-ups each thread waits one latency for its second batch
@@ -118,11 +129,25 @@ def test_follow_ups_keep_the_threads_busy_through_the_first_plan():
 def test_factoring_sizes_stay_within_bounds():
     per = 0.001
     planner = BatchPlanner(target_batch_s=0.05, min_batch_s=0.01, max_batch=64)
-    sizes, _, _ = _simulate(planner, 2, 2000, per, 0.002)
-    body = sizes[2:-2]  # after the probes, before the last round
-    assert max(sizes) <= 50  # target_batch_s / per
+    sizes, _, _, _ = _simulate(planner, 2, 2000, per, 0.002, max_s=0.1)
+    assert sizes[:4] == [4, 4, 64, 64]  # probes, then follow-ups of max_batch
+    body = sizes[4:-2]  # after the probes and follow-ups, before the last round
+    assert max(body) <= 50  # target_batch_s / per
     assert min(body) >= 10  # min_batch_s / per
     assert body == sorted(body, reverse=True) or max(body) == 50
+
+
+@pytest.mark.parametrize("lanes", [1, 2, 5])
+def test_slow_designs_are_bounded_by_the_worker_cap(lanes):
+    # designs of 0.4 s: the first batches, sized before any time is known, would run for
+    # 25 s; the worker's cap (max_s) cuts them, and what it hands back is shared out again
+    per, latency, points, max_s = 0.4, 0.01, 64 * lanes, 2.0
+    planner = BatchPlanner(target_batch_s=1.0, min_batch_s=0.1)
+    sizes, ends, left, longest = _simulate(planner, lanes, points, per, latency, max_s=max_s)
+    assert left == 0
+    assert longest <= max_s + per + 1e-9  # no batch runs past the cap by more than a point
+    assert max(ends) - min(ends) <= per + 2 * latency + 1e-9  # still ending together
+    assert max(ends) <= points * per / lanes + per + 3 * latency + 1e-9
 
 
 def test_unknown_and_repeated_reports_are_harmless():

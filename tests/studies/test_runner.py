@@ -15,6 +15,7 @@ from studies.lease import Lease
 from studies.runner import (
     ClusterError,
     ClusterSettings,
+    evaluate_batch,
     gc_frozen,
     make_jobqueue_cluster,
     open_client,
@@ -61,6 +62,31 @@ def test_all_points_stored_batches_grow(study, client):
     assert sum(stats.batch_sizes) == 40
     assert stats.workers == 2
     assert abs(stats.seconds_per_point - 0.02) < 1e-9
+
+
+def test_batches_cut_short_hand_their_rest_back(study, client):
+    """A worker stops a batch at max_batch_s; the points it did not start are queued again and
+    every point is stored exactly once (conservation: done == planned, no duplicate refused)."""
+    store, name, lease = study
+    stats = run_points(store, name, "{}", store.points(name, "planned"), lease, client,
+                       task=fake_task, progress=False, target_batch_s=0.2, max_batch_s=0.05)
+    assert store.counts(name) == {"planned": 0, "done": 40, "failed": 0, "total": 40}
+    assert stats.evaluated == 40 and stats.requeued > 0
+    assert sum(stats.batch_sizes) == 40 + stats.requeued
+    results = store.results(name)
+    assert len({r["point_id"] for r in results}) == 40
+
+
+def test_evaluate_batch_starts_no_point_after_max_s(tmp_path):
+    """The worker side of the cut: the first point always runs, none starts after max_s, and
+    what runs is the batch's first points in order, each the same record as uncut."""
+    ctx = load_context(write_study(tmp_path))
+    items = [(f"p{i}", {"antenna.length_mm": 140.0 + 5 * i}) for i in range(3)]
+    full = evaluate_batch(ctx.canonical_json, items)
+    assert [r.point_id for r in full] == ["p0", "p1", "p2"] and all(r.ok for r in full)
+    cut = evaluate_batch(ctx.canonical_json, items, 0.0)
+    assert [r.point_id for r in cut] == ["p0"]
+    assert cut[0].metrics == full[0].metrics
 
 
 def test_cluster_error_stops_without_marking_failed(study, client):
