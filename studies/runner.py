@@ -2,9 +2,11 @@
 
 The client (this process) owns the store; workers only run :func:`evaluate_batch`, a pure
 function of the study config and a list of ``(point_id, params)`` that returns one
-:class:`~studies.points.Record` per point. The client keeps two batches per worker thread in
-flight, sizes them from the measured time per point (:class:`studies.batching.BatchPlanner`:
-few large batches, and a last round sized so that the workers finish together), and writes
+:class:`~studies.points.Record` per point it evaluated (a worker starts no point of a batch
+after ``max_batch_s``; the client queues the rest again). The client keeps two batches per
+worker thread in flight, sizes them from the measured time per point
+(:class:`studies.batching.BatchPlanner`: few large batches, and a last round sized so that the
+workers finish together), sends each round of them to the scheduler in one message, and writes
 every finished batch in one transaction.
 
 Failures
