@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import functools
 import gc
+import itertools
 import logging
 import math
 import os
@@ -50,7 +51,7 @@ from sweeps.errors import ConfigError, FilamantError, StoreError
 
 __all__ = ["ClusterSettings", "JobSystem", "RunStats", "WorkerThreads", "evaluate_batch",
            "make_jobqueue_cluster", "open_client", "run_points", "default_workers",
-           "submit_queued", "submit_queued_many", "gc_frozen"]
+           "submit_queued_many", "gc_frozen"]
 
 logger = logging.getLogger(__name__)
 
@@ -378,12 +379,8 @@ def _can_mark_queued() -> bool:
     return "_data_producer" in inspect.signature(Task.__init__).parameters
 
 
-def submit_queued(client: Any, key: str, fn: Callable[..., Any], *args: Any) -> Any:
-    """Submit ``fn(*args)`` as task ``key`` to wait in the scheduler's queue; the Future.
-
-    One task of :func:`submit_queued_many`.
-    """
-    return submit_queued_many(client, [(key, fn, args)])[0]
+#: Tasks submitted by this process: the n-th gets priority -n (see submit_queued_many).
+_SUBMITTED = itertools.count(1)
 
 
 def submit_queued_many(client: Any, tasks: Sequence[tuple[str, Callable[..., Any],
@@ -399,8 +396,10 @@ def submit_queued_many(client: Any, tasks: Sequence[tuple[str, Callable[..., Any
     64-design runs on two workers with a trial planner that sent its last two batches
     together, the run taking 1.7 times as long). Marked, they wait in the queue and are
     taken first in, first out, which is what :class:`studies.batching.BatchPlanner` plans
-    for: each call is a generation of its own (``fifo_timeout`` 0), and within a call the
-    tasks go in the order given (a decreasing priority per task).
+    for: every task this process submits gets a lower priority than the one before
+    (``-n`` for the n-th), so the queue keeps the order of submission within a call and
+    across calls. (dask orders its queue by priority first; tasks of other clients at the
+    default priority 0 go before these.)
 
     All tasks go in one graph, so one message: the client sends the scheduler its messages
     at most every 10 ms, and a batch submitted just after another waited that long while its
@@ -414,10 +413,9 @@ def submit_queued_many(client: Any, tasks: Sequence[tuple[str, Callable[..., Any
     from dask.highlevelgraph import HighLevelGraph, MaterializedLayer
     from dask.task_spec import Task
 
-    n = len(tasks)
     layers = {key: MaterializedLayer({key: Task(key, fn, *args, _data_producer=True)},
-                                     annotations={"priority": n - i})
-              for i, (key, fn, args) in enumerate(tasks)}
+                                     annotations={"priority": -next(_SUBMITTED)})
+              for key, fn, args in tasks}
     graph = HighLevelGraph(layers, {key: set() for key in layers})
     keys = [key for key, _, _ in tasks]
     return list(client.get(graph, keys, sync=False, fifo_timeout="0s"))

@@ -138,6 +138,15 @@ def poison_task(study_json: str, items: list[tuple[str, dict]],
     return fake_task(study_json, items, max_s)
 
 
+def stamp_task(seconds: float) -> float:
+    """A worker task that notes when it started (time.time(), s) and then sleeps."""
+    import time as _time
+
+    start = _time.time()
+    _time.sleep(seconds)
+    return start
+
+
 def broken_task(study_json: str, items: list[tuple[str, dict]],
                 max_s: float = math.inf) -> list[Record]:
     """A task that fails as a whole (as when filamant is missing on a worker)."""

@@ -20,6 +20,7 @@ from studies.runner import (
     make_jobqueue_cluster,
     open_client,
     run_points,
+    submit_queued_many,
 )
 from studies.store import Store
 from sweeps.errors import ConfigError
@@ -28,6 +29,7 @@ from tests.studies.studies_store_support import (
     fake_points,
     fake_task,
     poison_task,
+    stamp_task,
     unique_name,
     write_study,
 )
@@ -87,6 +89,16 @@ def test_evaluate_batch_starts_no_point_after_max_s(tmp_path):
     cut = evaluate_batch(ctx.canonical_json, items, 0.0)
     assert [r.point_id for r in cut] == ["p0"]
     assert cut[0].metrics == full[0].metrics
+
+
+def test_queued_batches_start_in_the_order_submitted():
+    """submit_queued_many: within one call and across calls, a free worker thread takes the
+    oldest queued task (first in, first out, what the batch planner assumes)."""
+    with open_client(ClusterSettings(workers=1)) as one:
+        first = submit_queued_many(one, [(f"fifo-a{i}", stamp_task, (0.05,)) for i in range(3)])
+        second = submit_queued_many(one, [(f"fifo-b{i}", stamp_task, (0.05,)) for i in range(2)])
+        starts = one.gather(first + second)
+    assert starts == sorted(starts)
 
 
 def test_cluster_error_stops_without_marking_failed(study, client):
