@@ -179,12 +179,12 @@ def make_sampler(algorithm: str, trials: int, seed: int) -> tuple[Any, str]:
 
 def _immediate_transactions(engine: Any) -> None:
     """Give optuna's SQLite engine the filamant store's settings (WAL, foreign keys, a 30 s busy
-    timeout: :func:`studies.store._sqlite_setup`) with every transaction a writer from its start
+    timeout: :func:`studies.store.sqlite_setup`) with every transaction a writer from its start
     (``BEGIN IMMEDIATE``): its read-then-write transactions then wait for the lease heartbeat
     instead of failing on a lock upgrade."""
-    from studies.store import _sqlite_setup
+    from studies.store import sqlite_setup
 
-    _sqlite_setup(engine)
+    sqlite_setup(engine)
     engine.update_execution_options(filamant_write=True)  # BEGIN IMMEDIATE for all
     engine.dispose()  # connections made from now on get the settings
 

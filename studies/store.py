@@ -73,7 +73,7 @@ from sweeps import metrics as _metrics
 from sweeps.errors import StoreError
 
 __all__ = ["Store", "StudyRecord", "METRIC_COLUMNS", "STORE_VERSION", "encode_array",
-           "decode_array", "display_url", "sqlite_url_beside"]
+           "decode_array", "display_url", "sqlite_url_beside", "sqlite_setup"]
 
 logger = logging.getLogger(__name__)
 
@@ -302,7 +302,7 @@ class Store:
         except (ArgumentError, ImportError, SQLAlchemyError) as exc:
             raise StoreError(f"study.store: cannot open {self.display_url}: {exc}") from None
         if self.is_sqlite:
-            _sqlite_setup(self.engine)
+            sqlite_setup(self.engine)
         try:
             if create:
                 self._create_schema()
@@ -630,8 +630,12 @@ class Store:
                              "writing")
 
 
-def _sqlite_setup(engine: Engine) -> None:
-    """WAL, foreign keys, busy timeout and real transactions for pysqlite."""
+def sqlite_setup(engine: Engine) -> None:
+    """WAL, foreign keys, busy timeout and real transactions for pysqlite.
+
+    Every engine on a study's SQLite file needs these (the store's, and the optimizer's
+    storage in :mod:`studies.optimize`): call it once, right after ``create_engine``.
+    """
 
     @event.listens_for(engine, "connect")
     def _connect(dbapi_conn: Any, _record: Any) -> None:
