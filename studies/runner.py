@@ -51,7 +51,7 @@ from sweeps.errors import ConfigError, FilamantError, StoreError
 
 __all__ = ["ClusterSettings", "JobSystem", "RunStats", "WorkerThreads", "evaluate_batch",
            "make_jobqueue_cluster", "open_client", "run_points", "default_workers",
-           "submit_queued_many", "gc_frozen"]
+           "submit_queued_many", "gc_frozen", "started_within"]
 
 logger = logging.getLogger(__name__)
 
@@ -285,6 +285,17 @@ def _evaluator(study_json: str) -> Callable[[dict[str, Any]], Record]:
     return point_evaluator(study_json)
 
 
+def started_within(items: Sequence[Any], max_s: float) -> Iterator[Any]:
+    """Yield ``items`` in order, the first always and no later one once ``max_s`` seconds have
+    passed since the first was yielded: how a worker task cuts its batch short (the caller
+    evaluates each item between yields)."""
+    start = time.perf_counter()
+    for i, item in enumerate(items):
+        if i and time.perf_counter() - start >= max_s:
+            return
+        yield item
+
+
 def evaluate_batch(study_json: str, items: list[tuple[str, dict[str, Any]]],
                    max_s: float = math.inf) -> list[Record]:
     """Evaluate points of a study in order (runs on a worker; never touches the store).
@@ -308,11 +319,8 @@ def evaluate_batch(study_json: str, items: list[tuple[str, dict[str, Any]]],
     worker = f"{socket.gethostname()}:{os.getpid()}"
     evaluate = _evaluator(study_json)
     out: list[Record] = []
-    start = time.perf_counter()
-    for pid, params in items:
+    for pid, params in started_within(items, max_s):
         t0 = time.perf_counter()
-        if out and t0 - start >= max_s:
-            break
         try:
             rec = evaluate(params)
             rec.point_id = pid

@@ -116,11 +116,10 @@ def fake_task(study_json: str, items: list[tuple[str, dict]],
     studies.runner.evaluate_batch it starts no point after ``max_s`` (s) but the first."""
     import time as _time
 
+    from studies.runner import started_within
+
     out: list[Record] = []
-    start = _time.perf_counter()
-    for pid, params in items:
-        if out and _time.perf_counter() - start >= max_s:
-            break
+    for pid, params in started_within(items, max_s):
         _time.sleep(0.02)
         seq = int(round(params["antenna.length_mm"] - 100.0))
         rec = fake_record(Point(pid, params, seq))
